@@ -1,0 +1,163 @@
+"""The report object: the one path that the magic, the accessor and the CLI share.
+
+A :class:`Report` holds one frame and its options, computes each section on
+first request (and caches it), and hands out the widget, the code and the
+standalone HTML.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Hashable, Mapping
+from typing import Any
+
+import pandas as pd
+
+from nbeda._context import Context, Options
+from nbeda.sections import SECTIONS, TITLES, builder
+
+__all__ = ["Report", "normalise_tab"]
+
+
+def normalise_tab(name: str) -> str:
+    """Map a user-typed tab name ("Spread", "spread") to its section key; KeyError if unknown."""
+    key = str(name).strip().lower()
+    if key not in SECTIONS:
+        raise KeyError(f"unknown tab {name!r}; tabs are: {', '.join(TITLES[s] for s in SECTIONS)}")
+    return key
+
+
+class Report:
+    """Exploratory report of one DataFrame (sections computed lazily, then cached)."""
+
+    def __init__(
+        self,
+        frame: pd.DataFrame | pd.Series,
+        *,
+        roles: Mapping[Any, str] | None = None,
+        by: Hashable | None = None,
+        target: Hashable | None = None,
+        sample: int | None = None,
+        confidence: float = 0.95,
+        seed: int = 0,
+        tab: str | None = None,
+        frame_name: str = "df",
+    ) -> None:
+        if isinstance(frame, pd.Series):
+            frame = frame.to_frame(name=frame.name if frame.name is not None else 0)
+        if not isinstance(frame, pd.DataFrame):
+            raise TypeError(f"nbeda reports on a pandas DataFrame, not {type(frame).__name__}")
+        options = Options(
+            roles=dict(roles or {}), by=by, target=target, sample=sample, confidence=confidence, seed=seed
+        )
+        self.ctx = Context(frame, options)
+        self.frame_name = frame_name
+        self.initial_tab = normalise_tab(tab) if tab else "roles"
+        self._cache: dict[tuple[str, tuple[tuple[str, Any], ...]], Any] = {}
+
+    @property
+    def frame(self) -> pd.DataFrame:
+        return self.ctx.frame
+
+    @property
+    def options(self) -> Options:
+        return self.ctx.options
+
+    # ----------------------------------------------------------------- sections
+    def section(self, name: str, **kwargs: Any) -> Any:
+        """The result of one section (computed on first request, then cached)."""
+        key = normalise_tab(name)
+        cache_key = (key, tuple(sorted((k, _hashable(v)) for k, v in kwargs.items())))
+        if cache_key not in self._cache:
+            self._cache[cache_key] = builder(key)(self.ctx, **kwargs)
+        return self._cache[cache_key]
+
+    def roles(self) -> Any:
+        return self.section("roles")
+
+    def spread(self, **kwargs: Any) -> Any:
+        return self.section("spread", **kwargs)
+
+    def shape(self, **kwargs: Any) -> Any:
+        return self.section("shape", **kwargs)
+
+    def gaps(self, **kwargs: Any) -> Any:
+        return self.section("gaps", **kwargs)
+
+    def extremes(self, **kwargs: Any) -> Any:
+        return self.section("extremes", **kwargs)
+
+    def links(self, **kwargs: Any) -> Any:
+        return self.section("links", **kwargs)
+
+    def segments(self, by: Hashable | None = None, **kwargs: Any) -> Any:
+        return self.section("segments", by=by, **kwargs)
+
+    def trend(self, x: Hashable, y: Hashable, by: Hashable | None = None) -> Any:
+        try:
+            from nbeda.sections.links import build_trend
+        except ModuleNotFoundError:
+            raise NotImplementedError("trend() arrives with the Links tab (see the Links issue).") from None
+        return build_trend(self.ctx, x, y, by=by)
+
+    # --------------------------------------------------------------------- code
+    def code(self, tab: str, frame_name: str | None = None) -> str:
+        """Plain pandas code of one tab."""
+        return str(self.section(tab).code(frame_name or self.frame_name))
+
+    def all_code(self, frame_name: str | None = None) -> str:
+        """The whole analysis as one cell: every available section's code in tab order."""
+        blocks = []
+        for name in SECTIONS:
+            try:
+                blocks.append(f"# ===== {TITLES[name]} =====\n" + self.code(name, frame_name))
+            except NotImplementedError as exc:
+                blocks.append(f"# ===== {TITLES[name]} =====\n# {exc}\n")
+        return "\n".join(blocks)
+
+    # ------------------------------------------------------------------ display
+    def header_text(self) -> str:
+        f = self.frame
+        try:
+            dup = int(f.duplicated().sum()) if f.shape[1] else 0
+            dup_text = f"{dup:,} duplicate rows"
+        except TypeError:  # unhashable cells (lists, dicts)
+            dup_text = "duplicate rows not counted (unhashable values)"
+        mem = f.memory_usage(deep=True).sum() / 2**20
+        sampled = (
+            f"; row-heavy parts use a seeded sample of {self.options.sample:,} rows"
+            if self.options.sample and self.options.sample < f.shape[0]
+            else ""
+        )
+        return f"{f.shape[0]:,} rows × {f.shape[1]:,} columns · {mem:,.1f} MiB · {dup_text}{sampled}"
+
+    def widget(self) -> Any:
+        """The tabbed ipywidgets report (tabs computed when first opened)."""
+        from nbeda.widget import ReportWidget
+
+        return ReportWidget(self)
+
+    def to_html(self, path: str | None = None) -> str:
+        """One self-contained HTML file (all tabs, inline CSS and SVG, no network)."""
+        from nbeda.standalone import report_html
+
+        text = report_html(self)
+        if path is not None:
+            with open(path, "w", encoding="utf-8") as fh:
+                fh.write(text)
+        return text
+
+    def _ipython_display_(self) -> None:
+        from IPython.display import display
+
+        display(self.widget())
+
+    def __repr__(self) -> str:
+        return f"<nbeda Report: {self.header_text()}>"
+
+
+def _hashable(v: Any) -> Any:
+    try:
+        hash(v)
+        return v
+    except TypeError:
+        return repr(v)
