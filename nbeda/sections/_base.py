@@ -53,6 +53,10 @@ class SectionResult:
         """Plain pandas/numpy/scipy code assigning ``<name> = ...`` equal to :attr:`table`."""
         raise NotImplementedError
 
+    def panel(self) -> Any:
+        """Optional interactive ipywidgets panel (pickers); ``None`` → the shell shows :meth:`body_html`."""
+        return None
+
     def tables(self) -> dict[str, pd.DataFrame]:
         """Named tables to display (the main table first)."""
         return {self.title: self.table}
