@@ -16,14 +16,15 @@ Rules, in order (each produces the ``reason`` text):
 7. numbers:
    - only the values 0 and 1 → ``boolean``;
    - integer values, all distinct, in monotone order (≥ 3 values) → ``identifier``;
-   - integer values on a short contiguous scale starting at 0 or 1 with 3–11
+   - integer values on a short contiguous scale starting at 0 or 1 with 4–11
      levels and repeated values (e.g. 1–5, 1–7, 0–10) → ``ordinal``, read from a
      rating-like scale (override to ``discrete`` for counts);
    - integer values with at most 20 distinct levels (common practice) → ``discrete``;
    - other integer values → ``continuous`` (many levels);
    - non-integer numbers → ``continuous``;
 8. strings and mixed objects:
-   - two levels from yes/no, y/n, true/false, t/f, 0/1 (any case) → ``boolean``;
+   - values that reduce to two levels from yes/no, y/n, true/false, t/f, 0/1
+     (ignoring case and surrounding spaces) → ``boolean``;
    - ≥ 95% of a spread-out sample of ≤ 200 values look like dates and parse → ``datetime``;
    - mean length ≥ 30 characters and ≥ 50% distinct → ``text``;
    - all distinct (≥ 3 values) → ``identifier``;
@@ -68,8 +69,8 @@ def role_of(s):
     if isinstance(dtype, pd.CategoricalDtype):
         if dtype.ordered:
             return "ordinal", "ordered categorical: its levels carry an order"
-        words = set(values.astype(str).str.strip().str.lower().unique())
-        if unique == 2 and words in bool_words:
+        words = set(values.astype(str).str.strip().str.lower().unique()) if unique <= 8 else set()
+        if words in bool_words:
             return "boolean", "two yes/no-like levels: " + " / ".join(sorted(words))
         return "nominal", f"unordered categorical with {unique} levels"
     if (
@@ -90,7 +91,7 @@ def role_of(s):
             steps = np.diff(v)
             if count >= 3 and unique == count and (np.all(steps > 0) or np.all(steps < 0)):
                 return "identifier", "distinct integers in monotone order (a row number or key)"
-            if lo in (0, 1) and 3 <= levels.size <= 11 and levels.size == hi - lo + 1 and count > unique:
+            if lo in (0, 1) and 4 <= levels.size <= 11 and levels.size == hi - lo + 1 and count > unique:
                 return "ordinal", (
                     f"integers on a short contiguous {lo:g}–{hi:g} scale: read as a rating-like "
                     "ordinal scale (override to 'discrete' if they are counts)"
@@ -100,8 +101,8 @@ def role_of(s):
             return "continuous", f"integer values with many distinct levels ({unique})"
         return "continuous", "numbers with fractional values"
     text = values.astype(str)
-    words = set(text.str.strip().str.lower().unique()) if unique <= 2 else set()
-    if unique == 2 and words in bool_words:
+    words = set(text.str.strip().str.lower().unique()) if unique <= 8 else set()
+    if words in bool_words:
         return "boolean", "two yes/no-like values: " + " / ".join(sorted(words))
     pick = np.unique(np.linspace(0, count - 1, min(count, 200)).astype(np.int64))
     sample = text.iloc[pick].str.strip()
