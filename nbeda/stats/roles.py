@@ -45,22 +45,40 @@ import pandas as pd
 from nbeda._context import Context
 from nbeda.stats._codegen import function_source, header, join_blocks, lit
 
-__all__ = ["role_of", "describe_column", "compute_roles", "roles_code", "ROLES_COLUMNS"]
+__all__ = ["role_of", "role_row", "compute_roles", "roles_code", "ROLES_COLUMNS"]
 
 ROLES_COLUMNS = ["role", "dtype", "count", "missing", "unique", "example", "reason"]
 
 
-def role_of(s):
-    """Return (role, reason) for one column, by the documented rules."""
-    dtype = s.dtype
+def role_row(s):
+    """One Roles row for one column: role, dtype, count, missing, unique, example, reason."""
     values = s.dropna()
     count = len(values)
+    row = {"role": "", "dtype": str(s.dtype), "count": count, "missing": len(s) - count,
+           "unique": 0, "example": str(values.iloc[0])[:40] if count else "", "reason": ""}
+    dtype = s.dtype
     if count == 0:
-        return "empty", "no rows" if len(s) == 0 else "every value is missing"
+        row["role"], row["reason"] = "empty", "no rows" if len(s) == 0 else "every value is missing"
+        return row
+    numeric = pd.api.types.is_numeric_dtype(dtype) and not pd.api.types.is_bool_dtype(dtype)
+    levels = None  # sorted distinct values of a plain numeric column
     try:
-        unique = int(values.nunique())
+        if numeric and not isinstance(dtype, pd.CategoricalDtype):
+            levels = np.unique(values.to_numpy())  # one sort, reused below (exact for int64)
+            unique = int(levels.size)
+        else:
+            unique = int(values.nunique())
     except TypeError:
-        return "text", "values are containers (lists, dicts, sets): treated as text"
+        row["unique"] = int(values.astype(str).nunique())
+        row["role"], row["reason"] = "text", "values are containers (lists, dicts, sets): treated as text"
+        return row
+    row["unique"] = unique
+    row["role"], row["reason"] = _role_rules(values, dtype, count, unique, levels)
+    return row
+
+
+def _role_rules(values, dtype, count, unique, levels):
+    """The documented role rules, given the non-missing values and their distinct count."""
     if unique == 1:
         return "constant", f"a single distinct value in {count} non-missing rows"
     if pd.api.types.is_bool_dtype(dtype):
@@ -69,29 +87,25 @@ def role_of(s):
     if isinstance(dtype, pd.CategoricalDtype):
         if dtype.ordered:
             return "ordinal", "ordered categorical: its levels carry an order"
-        words = set(values.astype(str).str.strip().str.lower().unique()) if unique <= 8 else set()
+        words = {str(w).strip().lower() for w in values.unique()} if unique <= 8 else set()
         if words in bool_words:
             return "boolean", "two yes/no-like levels: " + " / ".join(sorted(words))
         return "nominal", f"unordered categorical with {unique} levels"
-    if (
-        pd.api.types.is_datetime64_any_dtype(dtype)
-        or isinstance(dtype, pd.PeriodDtype)
-    ):
+    if pd.api.types.is_datetime64_any_dtype(dtype) or isinstance(dtype, pd.PeriodDtype):
         return "datetime", f"{dtype} values"
     if pd.api.types.is_timedelta64_dtype(dtype):
         return "continuous", "durations: analysed in seconds"
-    if pd.api.types.is_numeric_dtype(dtype):
-        v = values.astype("float64").to_numpy()
-        finite = v[np.isfinite(v)]
+    if levels is not None:
+        finite = levels[np.isfinite(levels)]
         if finite.size and np.all(finite == np.round(finite)):
-            levels = np.unique(finite)
-            lo, hi = levels[0], levels[-1]
-            if levels.size == 2 and lo == 0 and hi == 1 and finite.size == v.size:
+            lo, hi = float(finite[0]), float(finite[-1])
+            if levels.size == 2 and lo == 0 and hi == 1:
                 return "boolean", "only the values 0 and 1"
-            steps = np.diff(v)
-            if count >= 3 and unique == count and (np.all(steps > 0) or np.all(steps < 0)):
-                return "identifier", "distinct integers in monotone order (a row number or key)"
-            if lo in (0, 1) and 4 <= levels.size <= 11 and levels.size == hi - lo + 1 and count > unique:
+            if count >= 3 and unique == count:
+                a = values.to_numpy()
+                if np.all(a[1:] > a[:-1]) or np.all(a[1:] < a[:-1]):
+                    return "identifier", "distinct integers in monotone order (a row number or key)"
+            if lo in (0, 1) and 4 <= finite.size <= 11 and finite.size == hi - lo + 1 and count > unique:
                 return "ordinal", (
                     f"integers on a short contiguous {lo:g}–{hi:g} scale: read as a rating-like "
                     "ordinal scale (override to 'discrete' if they are counts)"
@@ -100,12 +114,11 @@ def role_of(s):
                 return "discrete", f"integer values with few distinct levels ({unique})"
             return "continuous", f"integer values with many distinct levels ({unique})"
         return "continuous", "numbers with fractional values"
-    text = values.astype(str)
-    words = set(text.str.strip().str.lower().unique()) if unique <= 8 else set()
+    words = {str(w).strip().lower() for w in values.unique()} if unique <= 8 else set()
     if words in bool_words:
         return "boolean", "two yes/no-like values: " + " / ".join(sorted(words))
     pick = np.unique(np.linspace(0, count - 1, min(count, 200)).astype(np.int64))
-    sample = text.iloc[pick].str.strip()
+    sample = values.iloc[pick].astype(str).str.strip()
     date_like = sample.str.fullmatch(
         r"\d{4}-\d{1,2}-\d{1,2}([ T]\d{1,2}:\d{2}(:\d{2}(\.\d+)?)?)?(Z|[+-]\d{2}:?\d{2})?"
         r"|\d{1,2}[/.]\d{1,2}[/.]\d{2,4}"
@@ -114,6 +127,7 @@ def role_of(s):
         parsed = pd.to_datetime(sample, errors="coerce", format="mixed")
         if parsed.notna().mean() >= 0.95:
             return "datetime", "strings that parse as dates (checked on a sample of up to 200)"
+    text = values if pd.api.types.is_string_dtype(dtype) and not pd.api.types.is_object_dtype(dtype) else values.astype(str)
     mean_len = float(text.str.len().mean())
     if mean_len >= 30 and unique / count >= 0.5:
         return "text", f"long, mostly distinct strings (mean length {mean_len:.0f} characters)"
@@ -122,21 +136,10 @@ def role_of(s):
     return "nominal", f"{unique} distinct labels"
 
 
-def describe_column(s):
-    """The descriptive part of a Roles row: dtype, count, missing, unique, example."""
-    values = s.dropna()
-    try:
-        unique = int(values.nunique())
-    except TypeError:
-        unique = int(values.astype(str).nunique())
-    example = str(values.iloc[0])[:40] if len(values) else ""
-    return {
-        "dtype": str(s.dtype),
-        "count": int(len(values)),
-        "missing": int(len(s) - len(values)),
-        "unique": unique,
-        "example": example,
-    }
+def role_of(s):
+    """(role, reason) of one column."""
+    row = role_row(s)
+    return row["role"], row["reason"]
 
 
 def compute_roles(frame: pd.DataFrame, overrides: Mapping[Any, str] | None = None) -> pd.DataFrame:
@@ -145,11 +148,12 @@ def compute_roles(frame: pd.DataFrame, overrides: Mapping[Any, str] | None = Non
     rows = []
     for i in range(frame.shape[1]):
         s = frame.iloc[:, i]
-        role, reason = role_of(s)
+        row = role_row(s)
         label = frame.columns[i]
-        if label in overrides and overrides[label] != role:
-            role, reason = overrides[label], f"set by the user (inferred: {role}; {reason})"
-        rows.append({"role": role, **describe_column(s), "reason": reason})
+        if label in overrides and overrides[label] != row["role"]:
+            row["reason"] = f"set by the user (inferred: {row['role']}; {row['reason']})"
+            row["role"] = overrides[label]
+        rows.append(row)
     index = pd.Index(list(frame.columns), name="column", tupleize_cols=False, dtype=object)
     table = pd.DataFrame(rows, index=index, columns=ROLES_COLUMNS)
     return table.astype({"count": "int64", "missing": "int64", "unique": "int64"})
@@ -165,11 +169,12 @@ overrides = {overrides}
 rows = []
 for i in range({frame_name}.shape[1]):
     s = {frame_name}.iloc[:, i]
-    role, reason = role_of(s)
+    row = role_row(s)
     label = {frame_name}.columns[i]
-    if label in overrides and overrides[label] != role:
-        role, reason = overrides[label], f"set by the user (inferred: {{role}}; {{reason}})"
-    rows.append({{"role": role, **describe_column(s), "reason": reason}})
+    if label in overrides and overrides[label] != row["role"]:
+        row["reason"] = f"set by the user (inferred: {{row['role']}}; {{row['reason']}})"
+        row["role"] = overrides[label]
+    rows.append(row)
 roles = pd.DataFrame(
     rows,
     index=pd.Index(list({frame_name}.columns), name="column", tupleize_cols=False, dtype=object),
@@ -179,7 +184,7 @@ roles = pd.DataFrame(
     return join_blocks(
         header("Roles: what each column is", ctx, frame_name),
         "# The role rules, one column at a time.",
-        function_source(role_of),
-        function_source(describe_column),
+        function_source(role_row),
+        function_source(_role_rules),
         body,
     )
