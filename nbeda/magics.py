@@ -15,7 +15,10 @@ from nbeda._context import ROLES
 from nbeda.report import Report, normalise_tab
 from nbeda.sections import SECTIONS
 
-__all__ = ["EdaMagics", "split_line", "parse_roles"]
+__all__ = ["EdaMagics", "split_line", "parse_roles", "FRAME_NAME"]
+
+#: Name the emitted code gives a frame that came from an expression (``%eda df[df.x > 0]``).
+FRAME_NAME = "eda_frame"
 
 
 def split_line(line: str) -> tuple[str, str]:
@@ -85,6 +88,12 @@ class EdaMagics(Magics):
     @argument("--seed", type=int, default=0, help="seed for every random sample (default 0)")
     @argument("--code", default=None, metavar="TAB", help="put that tab's plain pandas code in a new cell below")
     @argument("--all-code", action="store_true", help="put the whole analysis as one cell below")
+    @argument(
+        "--charts",
+        default=None,
+        choices=("static", "interactive"),
+        help="static SVG charts (default) or interactive ones, both offline (e.g. --charts interactive)",
+    )
     @line_magic
     def eda(self, line: str = "") -> Any:
         """Exploratory report of a DataFrame: ``%eda df [options]``.
@@ -99,12 +108,16 @@ class EdaMagics(Magics):
             %eda df --roles pest_score=discrete --by site
             %eda df --code spread        # code of the Spread tab in a new cell
             %eda df --all-code           # the whole analysis as one cell
+            %eda df --charts interactive # charts with tooltips (still offline)
         """
         expr, opts = split_line(line)
         if not expr:
             raise UsageError("usage: %eda <DataFrame expression> [options]; see %eda?")
         frame = self._evaluate(expr)
-        return self._run(frame, opts, frame_name=expr if expr.isidentifier() else "df")
+        if expr.isidentifier():
+            return self._run(frame, opts, frame_name=expr)
+        # An expression: the code first assigns it to a name of its own (never over the user's df).
+        return self._run(frame, opts, frame_name=FRAME_NAME, frame_expr=expr)
 
     @magic_arguments()
     @argument("--tab", default=None)
@@ -116,6 +129,7 @@ class EdaMagics(Magics):
     @argument("--seed", type=int, default=0)
     @argument("--code", default=None, metavar="TAB")
     @argument("--all-code", action="store_true")
+    @argument("--charts", default=None, choices=("static", "interactive"))
     @cell_magic("eda")
     def eda_cell(self, line: str, cell: str) -> Any:
         """``%%eda [options]``: run the cell and report on the frame its last expression returns."""
@@ -125,11 +139,16 @@ class EdaMagics(Magics):
             raise UsageError(f"%%eda: the cell does not parse: {exc}") from None
         if not tree.body or not isinstance(tree.body[-1], ast.Expr):
             raise UsageError("%%eda: the cell must end with an expression giving a DataFrame")
-        last = ast.Expression(tree.body.pop().value)
+        last_node = tree.body.pop().value
+        last = ast.Expression(last_node)
         ns = self.shell.user_ns
         exec(compile(tree, "<%%eda cell>", "exec"), ns)  # noqa: S102 - the user's own cell
         value = eval(compile(last, "<%%eda cell>", "eval"), ns)  # noqa: S307
-        return self._run(self._check_frame(value, "the cell's last expression"), line, frame_name="df")
+        frame = self._check_frame(value, "the cell's last expression")
+        if isinstance(last_node, ast.Name):
+            return self._run(frame, line, frame_name=last_node.id)
+        source = ast.get_source_segment(cell, last_node) or ast.unparse(last_node)
+        return self._run(frame, line, frame_name=FRAME_NAME, frame_expr=" ".join(source.split()))
 
     # ------------------------------------------------------------------ helpers
     def _evaluate(self, expr: str) -> pd.DataFrame:
@@ -149,7 +168,7 @@ class EdaMagics(Magics):
             raise UsageError(f"{what} is a {type(value).__name__}, not a pandas DataFrame")
         return value
 
-    def _run(self, frame: pd.DataFrame, opts: str, frame_name: str) -> Any:
+    def _run(self, frame: pd.DataFrame, opts: str, frame_name: str, frame_expr: str | None = None) -> Any:
         try:
             args = parse_argstring(self.eda, opts)
         except UsageError:
@@ -175,6 +194,7 @@ class EdaMagics(Magics):
                 seed=args.seed,
                 tab=tab,
                 frame_name=frame_name,
+                frame_expr=frame_expr,
             )
         except (KeyError, ValueError) as exc:
             raise UsageError(str(exc.args[0] if exc.args else exc)) from None
@@ -185,5 +205,7 @@ class EdaMagics(Magics):
                 raise UsageError(str(exc)) from None
             self.shell.set_next_input(code, replace=False)
             return None
-        display(report.widget())
+        from nbeda.widget import ReportWidget
+
+        display(ReportWidget(report, charts=args.charts))
         return None

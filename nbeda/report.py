@@ -41,6 +41,7 @@ class Report:
         seed: int = 0,
         tab: str | None = None,
         frame_name: str = "df",
+        frame_expr: str | None = None,
     ) -> None:
         if isinstance(frame, pd.Series):
             frame = frame.to_frame(name=frame.name if frame.name is not None else 0)
@@ -51,6 +52,9 @@ class Report:
         )
         self.ctx = Context(frame, options)
         self.frame_name = frame_name
+        #: the expression the frame came from (``%eda df[df.site == "Northgate"]``); when set,
+        #: the code of the report starts by assigning it to ``frame_name``
+        self.frame_expr = frame_expr
         self.initial_tab = normalise_tab(tab) if tab else "roles"
         self._cache: dict[tuple[str, tuple[tuple[str, Any], ...]], Any] = {}
 
@@ -102,17 +106,25 @@ class Report:
     # --------------------------------------------------------------------- code
     def code(self, tab: str, frame_name: str | None = None) -> str:
         """Plain pandas code of one tab."""
-        return str(self.section(tab).code(frame_name or self.frame_name))
+        return self._frame_line(frame_name) + str(self.section(tab).code(frame_name or self.frame_name))
 
     def all_code(self, frame_name: str | None = None) -> str:
         """The whole analysis as one cell: every available section's code in tab order."""
-        blocks = []
+        blocks = [self._frame_line(frame_name).rstrip("\n")] if self._frame_line(frame_name) else []
         for name in SECTIONS:
             try:
-                blocks.append(f"# ===== {TITLES[name]} =====\n" + self.code(name, frame_name))
+                code = str(self.section(name).code(frame_name or self.frame_name))
+                blocks.append(f"# ===== {TITLES[name]} =====\n" + code)
             except NotImplementedError as exc:
                 blocks.append(f"# ===== {TITLES[name]} =====\n# {exc}\n")
+            except Exception as exc:  # one broken tab must not lose the others' code
+                blocks.append(f"# ===== {TITLES[name]} =====\n# code unavailable: {type(exc).__name__}: {exc}\n")
         return "\n".join(blocks)
+
+    def _frame_line(self, frame_name: str | None) -> str:
+        if not self.frame_expr or frame_name not in (None, self.frame_name):
+            return ""
+        return f"# The frame this analysis is about:\n{self.frame_name} = {self.frame_expr}\n\n"
 
     # ------------------------------------------------------------------ display
     def header_text(self) -> str:
