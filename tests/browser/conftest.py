@@ -1,0 +1,309 @@
+"""Browser test layer: JupyterLab 4 driven in Debian's Chromium with the network blocked.
+
+One JupyterLab server and one Chromium are shared by the whole layer (session
+fixtures).  Every request a page makes goes through :class:`NetworkGuard`: a
+request to anything but 127.0.0.1/localhost (or a ``data:``/``blob:`` URL, and
+``file:`` for the standalone report) is aborted and recorded, and the test that
+made it fails.  Chromium is Debian's (``/usr/bin/chromium``; ``.ci/browser-setup.sh``
+installs it) — Playwright never downloads a browser here.
+
+Run: ``python -m pytest -q -m browser tests/browser``.
+Screenshots land in ``tests/artifacts/`` (git-ignored).
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import secrets
+import shutil
+import socket
+import subprocess
+import sys
+import time
+import urllib.error
+import urllib.request
+from collections.abc import Iterator
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+from urllib.parse import urlsplit
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[2]
+TOUR = ROOT / "example_notebooks" / "greenhouse_tour.ipynb"
+ARTIFACTS = ROOT / "tests" / "artifacts"
+CHROMIUM = Path("/usr/bin/chromium")
+
+#: Required launch arguments (see issue "Proven in a real browser").  The host-resolver
+#: rule is extra belt and braces: even traffic that never reaches Playwright's router
+#: cannot resolve a name other than localhost.
+CHROMIUM_ARGS = [
+    "--no-sandbox",
+    "--disable-gpu",
+    "--disable-background-networking",
+    "--disable-component-update",
+    "--disable-sync",
+    "--no-first-run",
+    "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE localhost, EXCLUDE 127.0.0.1",
+]
+
+LOCAL_HOSTS = {"127.0.0.1", "localhost", "[::1]", "::1"}
+VIEWPORT = {"width": 1200, "height": 800}
+
+#: Console messages that are not errors of ours, each with the reason it is benign.
+#: Keep this list short; every entry needs a written reason.
+BENIGN_CONSOLE: list[tuple[str, str]] = [
+    # Chromium logs the 404 of the favicon probe it sends for file:// pages opened directly.
+    ("favicon.ico", "the browser's own favicon probe, not a request of the page"),
+]
+
+
+# --------------------------------------------------------------------------- network guard
+@dataclass
+class NetworkGuard:
+    """Routes every request of a browser context; aborts and records non-local ones."""
+
+    allow_file: bool = False
+    blocked: list[str] = field(default_factory=list)
+    requests: list[str] = field(default_factory=list)
+
+    def allowed(self, url: str) -> bool:
+        parts = urlsplit(url)
+        if parts.scheme in ("data", "blob", "about"):
+            return True
+        if parts.scheme == "file":
+            return self.allow_file
+        if parts.scheme in ("http", "https", "ws", "wss"):
+            return (parts.hostname or "") in LOCAL_HOSTS
+        return False
+
+    def route(self, route: Any) -> None:
+        url = route.request.url
+        self.requests.append(url)
+        if self.allowed(url):
+            route.continue_()
+        else:
+            self.blocked.append(url)
+            route.abort("blockedbyclient")
+
+    def on_websocket(self, ws: Any) -> None:
+        # Playwright's router does not see WebSocket handshakes; a non-local one is
+        # recorded here and fails the test (the host-resolver rule stops it connecting).
+        self.requests.append(ws.url)
+        if not self.allowed(ws.url):
+            self.blocked.append(ws.url)
+
+    def install(self, context: Any) -> None:
+        context.route("**/*", self.route)
+
+    def assert_clean(self) -> None:
+        assert not self.blocked, f"requests outside 127.0.0.1 were attempted: {self.blocked}"
+
+
+@dataclass
+class ConsoleLog:
+    """Console errors and uncaught page errors of one page."""
+
+    errors: list[str] = field(default_factory=list)
+    ignored: list[tuple[str, str]] = field(default_factory=list)
+
+    def on_console(self, msg: Any) -> None:
+        if msg.type != "error":
+            return
+        text = f"{msg.text} @ {msg.location.get('url', '')}"
+        for needle, reason in BENIGN_CONSOLE:
+            if needle in text:
+                self.ignored.append((text, reason))
+                return
+        self.errors.append(text)
+
+    def on_pageerror(self, exc: Any) -> None:
+        self.errors.append(f"uncaught: {exc}")
+
+    def attach(self, page: Any) -> None:
+        page.on("console", self.on_console)
+        page.on("pageerror", self.on_pageerror)
+
+    def assert_clean(self) -> None:
+        assert not self.errors, "console errors:\n" + "\n".join(self.errors)
+
+
+# --------------------------------------------------------------------------- server
+@dataclass
+class LabServer:
+    url: str
+    token: str
+    root: Path
+    process: subprocess.Popen[bytes]
+    log: Path
+
+    def api(self, path: str) -> Any:
+        req = urllib.request.Request(f"{self.url}{path}", headers={"Authorization": f"token {self.token}"})
+        with urllib.request.urlopen(req, timeout=10) as resp:  # noqa: S310 - 127.0.0.1 only
+            return json.loads(resp.read().decode("utf-8"))
+
+    def notebook(self, name: str) -> dict[str, Any]:
+        """The saved notebook as the server has it on disk (nbformat JSON)."""
+        return json.loads((self.root / name).read_text(encoding="utf-8"))
+
+
+def _free_port() -> int:
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return int(s.getsockname()[1])
+
+
+def _write_lab_settings(settings_dir: Path) -> None:
+    """User settings for the throwaway Lab: no news or update checks, every cell in the DOM."""
+    files = {
+        # No announcements feed and no update check (both would reach the internet).
+        "@jupyterlab/apputils-extension/notification.jupyterlab-settings": {
+            "fetchNews": "false",
+            "checkForUpdates": False,
+        },
+        # Render every cell (no virtual scrolling), so locators see the whole notebook; start
+        # the notebook's own kernel without asking.
+        "@jupyterlab/notebook-extension/tracker.jupyterlab-settings": {
+            "windowingMode": "none",
+            "autoStartDefaultKernel": True,
+        },
+    }
+    for rel, value in files.items():
+        path = settings_dir / rel
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(json.dumps(value), encoding="utf-8")
+
+
+@pytest.fixture(scope="session")
+def artifacts() -> Path:
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    return ARTIFACTS
+
+
+@pytest.fixture(scope="session")
+def lab_server(tmp_path_factory: pytest.TempPathFactory, artifacts: Path) -> Iterator[LabServer]:
+    """JupyterLab 4 on 127.0.0.1 (random free port) serving a temp dir with the tour notebook."""
+    base = tmp_path_factory.mktemp("lab")
+    root = base / "root"
+    root.mkdir()
+    shutil.copy(TOUR, root / TOUR.name)
+    settings = base / "settings"
+    _write_lab_settings(settings)
+    # A token from the test environment (NBEDA_TEST_TOKEN) or a fresh random one; handed
+    # to the server through its environment so it never shows in a process listing.
+    token = os.environ.get("NBEDA_TEST_TOKEN") or secrets.token_hex(24)
+    env = dict(os.environ)
+    env.update(
+        JUPYTER_TOKEN=token,
+        JUPYTER_CONFIG_DIR=str(base / "config"),
+        JUPYTER_RUNTIME_DIR=str(base / "runtime"),
+        JUPYTERLAB_SETTINGS_DIR=str(settings),
+        JUPYTERLAB_WORKSPACES_DIR=str(base / "workspaces"),
+        IPYTHONDIR=str(base / "ipython"),
+        # The kernel spec runs `python`: make it this interpreter (where nbeda is installed).
+        PATH=str(Path(sys.executable).parent) + os.pathsep + env.get("PATH", ""),
+        PYTHONUNBUFFERED="1",
+    )
+    env.pop("JUPYTER_PATH", None)
+    log = artifacts / "jupyterlab.log"
+    last_error = ""
+    for _attempt in range(3):  # a free port may be taken between probing and binding
+        port = _free_port()
+        cmd = [
+            sys.executable,
+            "-m",
+            "jupyterlab",
+            "--ServerApp.open_browser=False",
+            "--ServerApp.ip=127.0.0.1",
+            f"--ServerApp.port={port}",
+            "--ServerApp.port_retries=0",
+            f"--ServerApp.root_dir={root}",
+            "--ServerApp.allow_remote_access=False",
+            "--LabApp.news_url=None",
+            "--LabApp.check_for_updates_class=jupyterlab.NeverCheckForUpdate",
+            "--LabApp.extension_manager=readonly",
+        ]
+        if hasattr(os, "geteuid") and os.geteuid() == 0:
+            cmd.append("--ServerApp.allow_root=True")  # CI runs as root in a throwaway machine
+        fh = log.open("wb")
+        proc = subprocess.Popen(cmd, cwd=root, env=env, stdout=fh, stderr=subprocess.STDOUT)
+        url = f"http://127.0.0.1:{port}"
+        server = LabServer(url=url, token=token, root=root, process=proc, log=log)
+        deadline = time.monotonic() + 60
+        while time.monotonic() < deadline and proc.poll() is None:
+            try:
+                server.api("/api/status")
+                break
+            except (urllib.error.URLError, ConnectionError, TimeoutError, OSError) as exc:
+                last_error = str(exc)
+                time.sleep(0.25)
+        else:
+            proc.kill()
+            proc.wait(timeout=10)
+            fh.close()
+            last_error = log.read_text(errors="replace")[-3000:]
+            continue
+        try:
+            yield server
+        finally:
+            proc.terminate()
+            try:
+                proc.wait(timeout=15)
+            except subprocess.TimeoutExpired:
+                proc.kill()
+                proc.wait(timeout=10)
+            fh.close()
+        return
+    pytest.fail(f"JupyterLab did not start on 127.0.0.1; last output:\n{last_error}")
+
+
+# --------------------------------------------------------------------------- browser
+@pytest.fixture(scope="session")
+def browser() -> Iterator[Any]:
+    """Debian's headless Chromium through Playwright (never a downloaded browser)."""
+    if not CHROMIUM.exists():
+        pytest.fail(f"{CHROMIUM} is missing: run `bash .ci/browser-setup.sh` (apt-get install chromium)")
+    from playwright.sync_api import sync_playwright
+
+    with sync_playwright() as pw:
+        b = pw.chromium.launch(executable_path=str(CHROMIUM), headless=True, args=CHROMIUM_ARGS)
+        try:
+            yield b
+        finally:
+            b.close()
+
+
+@dataclass
+class Session:
+    """One browser context + page with its network guard and console log."""
+
+    context: Any
+    page: Any
+    guard: NetworkGuard
+    console: ConsoleLog
+
+    def close(self) -> None:
+        self.context.close()
+
+
+def open_session(browser: Any, *, origin: str | None = None, allow_file: bool = False) -> Session:
+    permissions = ["clipboard-read", "clipboard-write"] if origin else []
+    context = browser.new_context(
+        viewport=VIEWPORT,
+        device_scale_factor=1,
+        service_workers="block",  # their requests would bypass the router
+        permissions=[],
+    )
+    if origin:
+        context.grant_permissions(permissions, origin=origin)
+    guard = NetworkGuard(allow_file=allow_file)
+    guard.install(context)
+    page = context.new_page()
+    page.on("websocket", guard.on_websocket)
+    console = ConsoleLog()
+    console.attach(page)
+    page.set_default_timeout(30_000)
+    return Session(context=context, page=page, guard=guard, console=console)
+
