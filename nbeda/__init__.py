@@ -9,6 +9,7 @@ from typing import Any
 
 from nbeda import accessor as _accessor  # noqa: F401  (registers df.eda)
 from nbeda import demo
+from nbeda import options  # noqa: F401  (nbeda.options.charts)
 from nbeda._context import ROLES
 from nbeda.report import Report
 from nbeda.sections import SECTIONS
