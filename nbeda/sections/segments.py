@@ -262,7 +262,8 @@ class SegmentsResult(SectionResult):
         lim = float(np.nanmax(np.abs(values))) if np.isfinite(values).any() else 2.0
         lim = max(lim, 2.5)
         base = alt.Chart(data, title=f"{self.by} × {self.against}: adjusted residuals (|r| > 2 outlined)")
-        x = alt.X("level:N", sort=[str(v) for v in r.columns], title=str(self.against))
+        x = alt.X("level:N", sort=[str(v) for v in r.columns], title=str(self.against),
+                  axis=alt.Axis(labelAngle=0))
         y = alt.Y("segment:N", sort=[str(v) for v in r.index], title=str(self.by))
         cells = base.mark_rect().encode(
             x=x,
@@ -272,24 +273,21 @@ class SegmentsResult(SectionResult):
             strokeWidth=alt.condition("datum.beyond_2", alt.value(2), alt.value(0)),
             tooltip=["segment", "level", "count", alt.Tooltip("residual:Q", format="+.2f")],
         )
-        text = base.mark_text(fontSize=11).encode(
-            x=x,
-            y=y,
-            text="text:N",
-            fontWeight=alt.condition("datum.beyond_2", alt.value("bold"), alt.value("normal")),
+        plain = base.transform_filter("!datum.beyond_2").mark_text(fontSize=11).encode(x=x, y=y, text="text:N")
+        bold = base.transform_filter("datum.beyond_2").mark_text(fontSize=12, fontWeight="bold").encode(
+            x=x, y=y, text="text:N"
         )
-        return (cells + text).properties(width=max(120, 46 * r.shape[1]), height=max(60, 24 * r.shape[0]))
+        return (cells + plain + bold).properties(width=max(120, 46 * r.shape[1]), height=max(60, 24 * r.shape[0]))
 
     def charts(self) -> list[Any]:
-        out = []
+        """Builders of every chart of the tab: means with CIs, stacked shares, residual heatmap."""
         if self.by_pos is None:
-            return out
-        if self.metric_pos is not None:
-            out.append(self.means_chart())
-        out.append(self.shares_chart())
+            return []
+        makers = [self.means_chart] if self.metric_pos is not None else []
+        makers.append(self.shares_chart)
         if self.residuals is not None:
-            out.append(self.residuals_chart())
-        return out
+            makers.append(self.residuals_chart)
+        return list(makers)
 
     # -------------------------------------------------------------- display
     def body_html(self, *, with_chart: bool = True) -> str:
@@ -306,9 +304,9 @@ class SegmentsResult(SectionResult):
         if with_chart:
             from nbeda._render import chart_html
 
-            for ch in self.charts():
+            for make in self.charts():
                 try:
-                    parts.append(chart_html(ch))
+                    parts.append(chart_html(make()))
                 except Exception as exc:  # a chart failure never hides the numbers
                     parts.append(f"<div class='nb-flag'>chart unavailable: {esc(exc)}</div>")
         parts.append(notes_html(self.notes))
@@ -573,7 +571,7 @@ def _metric_words(ctx: Context, res: dict[str, Any], r: SegmentsResult, alpha: f
         f"ω² = {_num(anova['omega_squared'])}."
     )
     med_lead = sub["median"].idxmax()
-    if med_lead != lead:
+    if med_lead != lead and kw["p_value"] < alpha:
         r.cautions.append(
             f"{lead} has the highest mean but {med_lead} the highest median: a few extreme values may be "
             "driving the means (check the Extremes tab); Kruskal–Wallis compares the whole distributions."
