@@ -42,8 +42,12 @@ from nbeda.stats import segments as S
 
 __all__ = ["SegmentsResult", "build"]
 
-_UNSET: Any = None
 TINY = 5  # segments smaller than this are "tiny" (common practice)
+
+
+def _a(word: str) -> str:
+    """The word with its indefinite article ("a nominal", "an identifier")."""
+    return f"{'an' if word[:1] in 'aeiou' else 'a'} {word}"
 
 
 def _pct(x: float) -> str:
@@ -57,8 +61,10 @@ def _p(p: float) -> str:
 
 
 def _num(x: float) -> str:
-    if x is None or not np.isfinite(x):
+    if x is None or np.isnan(x):
         return "n/a"
+    if np.isinf(x):
+        return "∞" if x > 0 else "-∞"
     return f"{x:.4g}"
 
 
@@ -355,11 +361,22 @@ class SegmentsResult(SectionResult):
             dd.observe(redraw, names="value")
         return widgets.VBox([widgets.HBox([by_dd, against_dd, metric_dd]), out])
 
-    @staticmethod
-    def _panel_html(res: SegmentsResult) -> str:
+    _redraws = 0
+
+    @classmethod
+    def _panel_html(cls, res: SegmentsResult) -> str:
+        """Escaped HTML of one state of the panel; chart ids made unique (several SVGs per page)."""
         from nbeda._html import CSS
 
-        return f"<style>{CSS}</style><div class='nbeda'>{res.body_html()}</div>"
+        body = res.body_html()
+        try:
+            from nbeda.standalone import offline_svg
+
+            cls._redraws += 1
+            body = offline_svg(body, f"nbseg{id(res) % 100000}-{cls._redraws}")
+        except ImportError:  # pragma: no cover - the standalone module ships with the package
+            pass
+        return f"<style>{CSS}</style><div class='nbeda'>{body}</div>"
 
 
 # ---------------------------------------------------------------------- build
@@ -403,7 +420,7 @@ def build(ctx: Context, by: Any = None, metric: Any = None, against: Any = None,
         metric_pos = _resolve(ctx, metric, "metric")
         if not S.metric_allowed(ctx, metric_pos):
             raise ValueError(
-                f"metric {metric!r} is a {ctx.roles[metric_pos]} column; the metric must be numeric "
+                f"metric {metric!r} is {_a(ctx.roles[metric_pos])} column; the metric must be numeric "
                 "(continuous, discrete, numeric-coded ordinal or 0/1 boolean). "
                 "Use it as by= or against= instead."
             )
@@ -437,7 +454,7 @@ def _build_positions(
 ) -> SegmentsResult:
     if metric_pos is not None and not S.metric_allowed(ctx, metric_pos):
         raise ValueError(
-            f"metric {ctx.labels[metric_pos]!r} is a {ctx.roles[metric_pos]} column; the metric must be numeric"
+            f"metric {ctx.labels[metric_pos]!r} is {_a(ctx.roles[metric_pos])} column; the metric must be numeric"
         )
     if by_pos is None:
         metric_pos = against_pos = None
@@ -588,11 +605,17 @@ def _metric_words(ctx: Context, res: dict[str, Any], r: SegmentsResult, alpha: f
             "The segments' standard deviations differ by more than a factor of 2 (common practice): "
             "read Welch's ANOVA rather than the classic F test."
         )
-    r.cautions.append(
-        f"Pairwise differences come from Tukey's HSD, which keeps the familywise error rate at "
-        f"{_pct(alpha)} across all {len(groups) * (len(groups) - 1) // 2} comparisons; unadjusted pairwise "
-        "tests would flag differences by chance."
-    )
+    if anova["ss_within"] == 0:
+        r.notes.append(
+            f"Every segment's values of {metric} are identical within the segment: the within-segment "
+            "variation is zero, so F is infinite and the pairwise intervals cannot be computed."
+        )
+    if len(groups) > 2:
+        r.cautions.append(
+            f"Pairwise differences come from Tukey's HSD, which keeps the familywise error rate at "
+            f"{_pct(alpha)} across all {len(groups) * (len(groups) - 1) // 2} comparisons; unadjusted "
+            "pairwise tests would flag differences by chance."
+        )
     r.cautions.append(
         "A difference between segments is an association, not proof that the segment causes it: "
         "segments may differ in other ways too."
