@@ -99,7 +99,7 @@ SPREAD_COLUMNS = [
     "count", "mean", "mean_ci_low", "mean_ci_high", "median", "median_ci_low", "median_ci_high",
     "mode", "trimmed_mean", "std", "var", "sem", "min", "q1", "q3", "max", "range", "iqr", "mad",
     "cv", "sum",
-]  # fmt: skip
+]
 SPREAD_EXTRA_COLUMNS = ["n_inf", "mad_scaled", "mode_count", "distinct", "quartile_skew", "reading"]
 LEVELS_COLUMNS = ["count", "unique", "top", "top_count", "top_share", "entropy", "evenness"]
 
@@ -111,71 +111,50 @@ def spread_table(x, confidence=0.95):
         "median_ci_high", "mode", "trimmed_mean", "std", "var", "sem", "min", "q1", "q3", "max",
         "range", "iqr", "mad", "cv", "sum", "n_inf", "mad_scaled", "mode_count", "distinct",
         "quartile_skew",
-    ]  # fmt: skip
+    ]
     index = pd.Index(list(x.columns), name="column", tupleize_cols=False, dtype=object)
     values = np.array(x.to_numpy(dtype="float64", na_value=np.nan), dtype="float64", order="F")
     n_rows, k = values.shape
+    cols = np.arange(k)
+    row = np.arange(n_rows, dtype=np.int32 if n_rows < 2**31 - 1 else np.int64)[:, None]
     with np.errstate(all="ignore"):
         # ±inf are set aside (counted in n_inf); every statistic uses the finite values.
-        n_inf = np.isinf(values).sum(axis=0)
-        values[np.isinf(values)] = np.nan
-        n = np.sum(~np.isnan(values), axis=0)
+        infinite = np.isinf(values)
+        n_inf = infinite.sum(axis=0)
+        values[infinite] = np.nan
+        del infinite
+        n = n_rows - np.isnan(values).sum(axis=0)
 
-        # Sort every column once (missing values go last); order statistics reuse it.
+        # Sort every column once (missing values go last); everything below reuses it.
         s = np.sort(values, axis=0)
-        cols = np.arange(k)
+        del values
+        valid = row < n  # the finite values of each column are its first n sorted rows
 
         def order_stat(pos):
             """0-based order statistic ``pos`` of each column (NaN where out of range)."""
             pos = np.asarray(pos, dtype="float64")
-            ok = (pos >= 0) & (pos < n) & (n > 0)
-            got = s[np.where(ok, pos, 0).astype(np.int64), cols] if n_rows else np.full(k, np.nan)
-            return np.where(ok, got, np.nan)
-
-        def quantile(p, sorted_values=s):
-            """Linear-interpolation quantile (pandas/numpy default): position (n - 1)·p."""
-            h = (n - 1) * p
-            lo = np.floor(h)
-            hi = np.ceil(h)
-            ok = n > 0
+            ok = (pos >= 0) & (pos < n)
             if n_rows == 0:
                 return np.full(k, np.nan)
-            a = sorted_values[np.where(ok, lo, 0).astype(np.int64), cols]
-            b = sorted_values[np.where(ok, hi, 0).astype(np.int64), cols]
-            t = h - lo
+            return np.where(ok, s[np.where(ok, pos, 0).astype(np.int64), cols], np.nan)
+
+        def quantile(p, sorted_values):
+            """Linear-interpolation quantile (pandas/numpy default): position (n - 1)·p."""
+            if n_rows == 0:
+                return np.full(k, np.nan)
+            h = np.maximum((n - 1) * p, 0)
+            lo, hi = np.floor(h).astype(np.int64), np.ceil(h).astype(np.int64)
+            a, b, t = sorted_values[lo, cols], sorted_values[hi, cols], h - lo
             out = np.where(t >= 0.5, b - (b - a) * (1 - t), a + (b - a) * t)
-            return np.where(ok, np.where(a == b, a, out), np.nan)
-
-        # Moments: scale each column by a power of two (exact), then a corrected two-pass.
-        max_abs = np.nanmax(np.abs(s), axis=0, initial=0.0) if n_rows else np.zeros(k)
-        max_abs = np.where(np.isnan(max_abs), 0.0, max_abs)
-        scale = np.ldexp(1.0, np.frexp(max_abs)[1])
-        z = s / scale
-        total_z = np.nansum(z, axis=0)
-        mean0 = total_z / n
-        d = z - mean0
-        resid = np.nansum(d, axis=0)
-        mean_z = mean0 + resid / n
-        ss = np.nansum(d * d, axis=0) - resid * resid / n
-        var_z = np.where(n > 1, np.maximum(ss, 0.0) / (n - 1), np.nan)
-        mean = np.where(n > 0, mean_z * scale, np.nan)
-        std = np.sqrt(var_z) * scale
-        var = std * std
-        sem = std / np.sqrt(n)
-        total = np.where(n > 0, total_z * scale, 0.0)
-
-        # t-interval for the mean.
-        t_crit = stats.t.ppf(0.5 + confidence / 2, np.where(n > 1, n - 1, 1))
-        half = np.where(n > 1, t_crit * sem, np.nan)
-        mean_ci_low = np.where(half == 0, mean, mean - half)
-        mean_ci_high = np.where(half == 0, mean, mean + half)
+            return np.where(n > 0, np.where(a == b, a, out), np.nan)
 
         # Order statistics: min, quartiles, median, max.
         minimum = order_stat(np.zeros(k))
         maximum = order_stat(n - 1)
-        median = quantile(0.5)
-        q1 = quantile(0.25)
-        q3 = quantile(0.75)
+        median = quantile(0.5, s)
+        q1 = quantile(0.25, s)
+        q3 = quantile(0.75, s)
+        iqr = q3 - q1
 
         # Distribution-free median interval [x_(l), x_(n+1-l)] (1-based), l from Binomial(n, 1/2):
         # coverage 1 - 2·P(B <= l - 1) >= confidence; blank when l < 1 (too few values).
@@ -184,41 +163,65 @@ def spread_table(x, confidence=0.95):
         median_ci_low = np.where(has_ci, order_stat(l - 1), np.nan)
         median_ci_high = np.where(has_ci, order_stat(n - l), np.nan)
 
-        # Mode: longest run of equal values in the sorted column (the first such run = smallest value).
-        if n_rows:
-            row = np.arange(n_rows)[:, None]
-            starts = np.ones(s.shape, dtype=bool)
-            starts[1:] = s[1:] != s[:-1]
-            run_start = np.maximum.accumulate(np.where(starts, row, 0), axis=0)
-            run_length = np.where(row < n, row - run_start + 1, 0)
-            mode_count = run_length.max(axis=0)
-            mode_pos = run_length.argmax(axis=0)
-            mode = np.where(mode_count > 1, s[mode_pos, cols], np.nan)
-            distinct = np.sum(starts & (row < n), axis=0)
-        else:
-            distinct = np.zeros(k, dtype=np.int64)
-            mode_count = np.zeros(k, dtype=np.int64)
-            mode = np.full(k, np.nan)
-        mode = np.where((n == 1), s[0, cols] if n_rows else np.nan, mode)
+        # Moments: scale each column by a power of two (exact; avoids overflow near 1e308),
+        # then the corrected two-pass algorithm: mean refined by the mean residual and
+        # var = (sum(d^2) - sum(d)^2 / n) / (n - 1), with d = x - sum(x) / n.
+        max_abs = np.fmax(np.abs(minimum), np.abs(maximum))
+        scale = np.ldexp(1.0, np.frexp(np.nan_to_num(max_abs))[1])
+        z = np.where(valid, s / scale, 0.0)
+        total_z = z.sum(axis=0)
+        mean0 = total_z / n
 
         # 10% trimmed mean: drop floor(0.1·n) values from each end (scipy.stats.trim_mean(x, 0.1)).
         g = np.floor(0.1 * n)
-        if n_rows:
-            keep = (row >= g) & (row < n - g)
-            trimmed = np.sum(np.where(keep, z, 0.0), axis=0) / (n - 2 * g) * scale
-        else:
-            trimmed = np.full(k, np.nan)
-        trimmed = np.where(n > 0, trimmed, np.nan)
+        keep = (row >= g) & (row < n - g)
+        trimmed = np.where(n > 0, z.sum(axis=0, where=keep) / (n - 2 * g) * scale, np.nan)
+        del keep
 
-        # Median absolute deviation from the median (raw), and scaled to match the std for normal data.
-        mad = quantile(0.5, np.sort(np.abs(s - median), axis=0)) if n_rows else np.full(k, np.nan)
-        mad_scaled = mad / stats.norm.ppf(0.75)
-
+        z -= mean0
+        z *= valid  # deviations d (0 outside the finite values)
+        resid = z.sum(axis=0)
+        np.square(z, out=z)
+        ss = z.sum(axis=0) - resid * resid / n
+        del z
+        mean = np.where(n > 0, (mean0 + resid / n) * scale, np.nan)
+        std = np.where(n > 1, np.sqrt(np.maximum(ss, 0.0) / (n - 1)) * scale, np.nan)
+        var = std * std
+        sem = std / np.sqrt(n)
+        total = np.where(n > 0, total_z * scale, 0.0)
         cv = np.where(mean != 0, std / mean, np.nan)
 
+        # t-interval for the mean.
+        t_crit = stats.t.ppf(0.5 + confidence / 2, np.where(n > 1, n - 1, 1))
+        half = np.where(n > 1, t_crit * sem, np.nan)
+        mean_ci_low = np.where(half == 0, mean, mean - half)
+        mean_ci_high = np.where(half == 0, mean, mean + half)
+
+        # Mode: longest run of equal values in the sorted column; the first such run is the
+        # smallest most frequent value. (Missing values at the end are runs of length 1.)
+        if n_rows:
+            starts = np.ones(s.shape, dtype=bool)
+            np.not_equal(s[1:], s[:-1], out=starts[1:])
+            distinct = (starts & valid).sum(axis=0)
+            run = np.where(starts, row, 0)
+            del starts
+            np.maximum.accumulate(run, axis=0, out=run)
+            np.subtract(row + np.int32(1), run, out=run)  # run length so far at each sorted row
+            mode_pos = run.argmax(axis=0)
+            mode_count = np.where(n > 0, run[mode_pos, cols], 0)
+            del run
+            mode = np.where((mode_count > 1) | (n == 1), s[mode_pos, cols], np.nan)
+        else:
+            distinct = mode_count = np.zeros(k, dtype=np.int64)
+            mode = np.full(k, np.nan)
+
+        # Median absolute deviation from the median (raw), and scaled to match the std for normal data.
+        mad = quantile(0.5, np.sort(np.abs(s - median), axis=0))
+        mad_scaled = mad / stats.norm.ppf(0.75)
+
         # Quartile (Bowley) skewness: (q3 + q1 - 2·median) / iqr, in [-1, 1]; blank when iqr is 0.
-        iqr = q3 - q1
         quartile_skew = np.where(iqr > 0, ((q3 - median) - (median - q1)) / iqr, np.nan)
+        value_range = maximum - minimum
 
     table = pd.DataFrame(
         {
@@ -226,14 +229,14 @@ def spread_table(x, confidence=0.95):
             "mean_ci_high": mean_ci_high, "median": median, "median_ci_low": median_ci_low,
             "median_ci_high": median_ci_high, "mode": mode, "trimmed_mean": trimmed, "std": std,
             "var": var, "sem": sem, "min": minimum, "q1": q1, "q3": q3, "max": maximum,
-            "range": maximum - minimum, "iqr": iqr, "mad": mad, "cv": cv, "sum": total,
+            "range": value_range, "iqr": iqr, "mad": mad, "cv": cv, "sum": total,
             "n_inf": n_inf.astype("int64"), "mad_scaled": mad_scaled,
-            "mode_count": np.where(n > 0, mode_count, 0).astype("int64"),
+            "mode_count": mode_count.astype("int64"),
             "distinct": distinct.astype("int64"), "quartile_skew": quartile_skew,
         },
         index=index,
         columns=columns,
-    )  # fmt: skip
+    )
     table["reading"] = spread_reading(table)
     return table
 
@@ -290,7 +293,7 @@ def levels_table(cols):
         total = int(counts.sum())
         if total == 0:
             rows.append({"count": 0, "unique": 0, "top": "", "top_count": 0,
-                         "top_share": np.nan, "entropy": np.nan, "evenness": np.nan})  # fmt: skip
+                         "top_share": np.nan, "entropy": np.nan, "evenness": np.nan})
             continue
         freq = counts.to_numpy(dtype="int64")
         top = int(np.argmax(freq))  # ties: the level met first
@@ -304,12 +307,12 @@ def levels_table(cols):
             "top_share": freq[top] / total,
             "entropy": entropy,
             "evenness": entropy / np.log2(len(freq)) if len(freq) > 1 else np.nan,
-        })  # fmt: skip
+        })
     index = pd.Index(list(cols.columns), name="column", tupleize_cols=False, dtype=object)
     columns = ["count", "unique", "top", "top_count", "top_share", "entropy", "evenness"]
     table = pd.DataFrame(rows, index=index, columns=columns)
     return table.astype({"count": "int64", "unique": "int64", "top": object, "top_count": "int64",
-                         "top_share": "float64", "entropy": "float64", "evenness": "float64"})  # fmt: skip
+                         "top_share": "float64", "entropy": "float64", "evenness": "float64"})
 
 
 # ---------------------------------------------------------------------------- glue
