@@ -297,24 +297,41 @@ class SegmentsResult(SectionResult):
 
     # -------------------------------------------------------------- display
     def body_html(self, *, with_chart: bool = True) -> str:
-        parts = [notes_html(self.flags, "nb-flag"), notes_html(self.summary)]
-        for caption, t in self.tables().items():
-            parts.append(table_html(t, caption=caption))
-        if self.cramers_v is not None:
-            parts.append(
-                "<div class='nb-notes'>"
-                + esc(f"Cramér's V = {self.cramers_v:.3f}; bias-corrected V (Bergsma 2013) = "
-                      f"{_num(self.cramers_v_corrected)}")
-                + "</div>"
-            )
-        if with_chart:
-            from nbeda._render import chart_html
+        """Flags and the reading in words first; each chart beside the tables it draws."""
+        from nbeda._render import chart_html
 
-            for make in self.charts():
-                try:
-                    parts.append(chart_html(make()))
-                except Exception as exc:  # a chart failure never hides the numbers
-                    parts.append(f"<div class='nb-flag'>chart unavailable: {esc(exc)}</div>")
+        def draw(make: Any) -> str:
+            if not with_chart:
+                return ""
+            try:
+                return chart_html(make())
+            except Exception as exc:  # a chart failure never hides the numbers
+                return f"<div class='nb-flag'>chart unavailable: {esc(type(exc).__name__)}: {esc(exc)}</div>"
+
+        tables = self.tables()
+        charts_after = {}
+        if self.by_pos is not None:
+            keys = list(tables)
+            if self.metric_pos is not None:
+                charts_after[keys[0]] = self.means_chart
+            balance_key = next((k for k in keys if k.startswith("Balance")), None)
+            if self.crosstab is not None:
+                charts_after["Row %"] = self.shares_chart
+                charts_after["Adjusted standardized residuals"] = self.residuals_chart
+            elif balance_key is not None:
+                charts_after[balance_key] = self.shares_chart
+        parts = [notes_html(self.flags, "nb-flag"), notes_html(self.summary)]
+        for caption, t in tables.items():
+            parts.append(table_html(t, caption=caption))
+            if caption == "Adjusted standardized residuals" and self.cramers_v is not None:
+                parts.append(
+                    "<div class='nb-notes'>"
+                    + esc(f"Cramér's V = {self.cramers_v:.3f}; bias-corrected V (Bergsma 2013) = "
+                          f"{_num(self.cramers_v_corrected)}")
+                    + "</div>"
+                )
+            if caption in charts_after:
+                parts.append(draw(charts_after[caption]))
         parts.append(notes_html(self.notes))
         parts.append(notes_html(self.cautions, "nb-caution"))
         return "".join(parts)
