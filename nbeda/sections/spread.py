@@ -9,9 +9,11 @@ from __future__ import annotations
 
 from typing import Any
 
+import numpy as np
 import pandas as pd
 
 from nbeda._context import Context
+from nbeda._html import fmt
 from nbeda.sections._base import SectionResult
 from nbeda.stats.spread import compute_levels, compute_spread, spread_code
 
@@ -37,18 +39,47 @@ class SpreadResult(SectionResult):
         return out
 
     def chart_data(self) -> pd.DataFrame:
-        """The small pre-aggregated frame behind :meth:`chart` (one row per drawn column)."""
+        """The small pre-aggregated frame behind :meth:`chart` (one row per drawn column).
+
+        Whiskers reach the 1.5·IQR fences (common practice), clipped to min/max; a min, max
+        or mean beyond the whiskers is named in ``beyond`` instead of stretching the axis.
+        """
         t = self.table[self.table["count"] > 0].head(CHART_MAX_COLUMNS)
-        labels = [str(c) for c in t.index]
         seen: dict[str, int] = {}
         shown = []
-        for lab in labels:  # keep duplicated labels apart in the chart
-            seen[lab] = seen.get(lab, 0) + 1
-            shown.append(lab if seen[lab] == 1 else f"{lab} ({seen[lab]})")
-        keep = ["min", "q1", "median", "q3", "max", "mean", "median_ci_low", "median_ci_high"]
-        data = pd.DataFrame(t[keep].to_numpy(dtype="float64"), columns=keep)
-        data.insert(0, "column", shown)
-        return data
+        for label in (str(c) for c in t.index):  # keep duplicated labels apart in the chart
+            seen[label] = seen.get(label, 0) + 1
+            shown.append(label if seen[label] == 1 else f"{label} ({seen[label]})")
+        num = {c: t[c].to_numpy(dtype="float64") for c in t.columns if c not in ("reading",)}
+        lo = np.fmax(num["min"], num["q1"] - 1.5 * num["iqr"])
+        hi = np.fmin(num["max"], num["q3"] + 1.5 * num["iqr"])
+        inside = (num["mean"] >= lo) & (num["mean"] <= hi)
+        beyond = []
+        for j in range(len(t)):
+            words = []
+            if num["min"][j] < lo[j]:
+                words.append(f"min {fmt(num['min'][j])}")
+            if num["max"][j] > hi[j]:
+                words.append(f"max {fmt(num['max'][j])}")
+            if not inside[j]:
+                words.append(f"mean {fmt(num['mean'][j])}")
+            beyond.append(("beyond whiskers: " + ", ".join(words)) if words else "")
+        return pd.DataFrame(
+            {
+                "column": shown,
+                "whisker_low": lo,
+                "q1": num["q1"],
+                "median": num["median"],
+                "q3": num["q3"],
+                "whisker_high": hi,
+                "mean": np.where(inside, num["mean"], np.nan),
+                "median_ci_low": num["median_ci_low"],
+                "median_ci_high": num["median_ci_high"],
+                "min": num["min"],
+                "max": num["max"],
+                "beyond": beyond,
+            }
+        )
 
     def chart(self) -> Any:
         import altair as alt
@@ -57,24 +88,38 @@ class SpreadResult(SectionResult):
         if data.empty:
             return None
         base = alt.Chart(data)
-        y = alt.Y("column:N", title=None, sort=None, axis=alt.Axis(labelLimit=180))
-        tip = [alt.Tooltip(c, format=".4g") if c != "column" else "column" for c in data.columns]
-        line = base.mark_rule(color="#6b7280").encode(
-            y=y, x=alt.X("min:Q", title="value (each row on its own scale)", scale=alt.Scale(zero=False)),
-            x2="max:Q", tooltip=tip,
-        )
+        y = alt.Y("column:N", title=None, axis=None)
+        tip = [
+            "column",
+            *[alt.Tooltip(f"{c}:Q", format=",.4~g") for c in ("min", "q1", "median", "q3", "max", "mean")],
+        ]
+        x = alt.X("whisker_low:Q", title=None, scale=alt.Scale(zero=False, nice=False))
+        whisker = base.mark_rule(color="#6b7280").encode(y=y, x=x, x2="whisker_high:Q", tooltip=tip)
         box = base.mark_bar(color="#9db4cf", size=14).encode(y=y, x="q1:Q", x2="q3:Q", tooltip=tip)
-        ci = base.mark_bar(color="#3b5b7e", size=5).encode(y=y, x="median_ci_low:Q", x2="median_ci_high:Q")
+        band = base.mark_bar(color="#3b5b7e", size=5).encode(y=y, x="median_ci_low:Q", x2="median_ci_high:Q")
         med = base.mark_tick(color="#1f2937", thickness=2, size=18).encode(y=y, x="median:Q")
         mean = base.mark_point(color="#b45309", shape="diamond", filled=True, size=40).encode(y=y, x="mean:Q")
-        layered = alt.layer(line, box, ci, med, mean).properties(width=360, height=24)
+        note = base.mark_text(align="left", dx=8, fontSize=10, color="#8a1c1c").encode(
+            y=y, x="whisker_high:Q", text="beyond:N"
+        )
+        layered = alt.layer(whisker, box, band, med, mean, note).properties(width=320, height=22)
         return (
-            layered.facet(row=alt.Row("column:N", title=None, sort=list(data["column"]), header=alt.Header(labelAngle=0, labelAlign="left")))
+            layered.facet(
+                row=alt.Row(
+                    "column:N",
+                    title=None,
+                    sort=list(data["column"]),
+                    header=alt.Header(labelAngle=0, labelAlign="left", labelLimit=160),
+                )
+            )
             .resolve_scale(x="independent", y="independent")
             .properties(
                 title=alt.TitleParams(
-                    "Five-number summary per column",
-                    subtitle="line: min–max · box: q1–q3 · dark band: median CI · tick: median · diamond: mean",
+                    "Box summary per column (each on its own scale)",
+                    subtitle=[
+                        "box: q1–q3 · tick: median · dark band: median CI · diamond: mean",
+                        "whiskers: 1.5·IQR fences clipped to min/max (common practice)",
+                    ],
                 )
             )
         )
