@@ -201,6 +201,12 @@ def main(argv: list[str] | None = None) -> int:
         code_out = Path(args.code) if args.code else None
         if code_out is not None and code_out.resolve() == out.resolve():
             raise CliError("--code and -o must be different files")
+        from nbeda._context import Options
+
+        try:  # check the plain options before reading a possibly large file
+            Options(sample=args.sample, confidence=args.confidence, seed=args.seed)
+        except (ValueError, TypeError) as exc:
+            raise CliError(str(exc)) from None
         say(f"reading {args.data} …")
         frame = read_data(args.data)
         say(f"read {frame.shape[0]:,} rows × {frame.shape[1]:,} columns")

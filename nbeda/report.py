@@ -7,6 +7,7 @@ standalone HTML.
 
 from __future__ import annotations
 
+import ast
 from collections.abc import Hashable, Mapping
 from typing import Any
 
@@ -113,7 +114,7 @@ class Report:
         blocks = [self._frame_line(frame_name).rstrip("\n")] if self._frame_line(frame_name) else []
         for name in SECTIONS:
             try:
-                code = str(self.section(name).code(frame_name or self.frame_name))
+                code = keep_results_apart(str(self.section(name).code(frame_name or self.frame_name)), name)
                 blocks.append(f"# ===== {TITLES[name]} =====\n" + code)
             except NotImplementedError as exc:
                 blocks.append(f"# ===== {TITLES[name]} =====\n# {exc}\n")
@@ -165,6 +166,73 @@ class Report:
 
     def __repr__(self) -> str:
         return f"<nbeda Report: {self.header_text()}>"
+
+
+def _module_level_stores(tree: ast.Module) -> set[str]:
+    """Names a piece of code binds at module level (not inside functions, classes, lambdas
+    or comprehensions, whose names do not leak)."""
+    names: set[str] = set()
+    scopes = (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef, ast.Lambda,
+              ast.ListComp, ast.SetComp, ast.DictComp, ast.GeneratorExp)  # fmt: skip
+    stack: list[ast.AST] = list(tree.body)
+    while stack:
+        node = stack.pop()
+        if isinstance(node, (ast.FunctionDef, ast.AsyncFunctionDef, ast.ClassDef)):
+            names.add(node.name)
+            continue
+        if isinstance(node, scopes):
+            continue
+        if isinstance(node, ast.Name) and isinstance(node.ctx, ast.Store):
+            names.add(node.id)
+        elif isinstance(node, ast.alias):
+            names.add((node.asname or node.name).split(".")[0])
+        stack.extend(ast.iter_child_nodes(node))
+    return names
+
+
+def keep_results_apart(code: str, own: str) -> str:
+    """Make one section's code safe to run after the others in a single cell.
+
+    Each section's code runs on its own; run one after another (``all_code``), a block
+    that uses another section's result name (say ``roles``) as a working variable would
+    overwrite that table.  Such names are renamed inside this block only (``gaps_roles``),
+    every occurrence: variables, function parameters and keywords of calls to functions
+    the block defines.  Attributes, strings and library keywords are left alone.
+    """
+    try:
+        tree = ast.parse(code)
+    except SyntaxError:
+        return code
+    clash = (_module_level_stores(tree) & set(SECTIONS)) - {own}
+    if not clash:
+        return code
+    used = {n.id for n in ast.walk(tree) if isinstance(n, ast.Name)} | _module_level_stores(tree)
+    new: dict[str, str] = {}
+    for name in sorted(clash):
+        candidate = f"{own}_{name}"
+        while candidate in used:
+            candidate += "_"
+        new[name] = candidate
+    local_funcs = {n.name for n in ast.walk(tree) if isinstance(n, (ast.FunctionDef, ast.AsyncFunctionDef))}
+    edits: list[tuple[int, int, str]] = []  # (line, byte column, old name)
+    for node in ast.walk(tree):
+        if isinstance(node, ast.Name) and node.id in new:
+            edits.append((node.lineno, node.col_offset, node.id))
+        elif isinstance(node, ast.arg) and node.arg in new:
+            edits.append((node.lineno, node.col_offset, node.arg))
+        elif isinstance(node, ast.Call) and isinstance(node.func, ast.Name) and node.func.id in local_funcs:
+            edits.extend((kw.lineno, kw.col_offset, kw.arg) for kw in node.keywords if kw.arg in new)
+    lines = [line.encode("utf-8") for line in code.split("\n")]
+    for lineno, col, old in sorted(set(edits), reverse=True):
+        raw = lines[lineno - 1]
+        if raw[col : col + len(old)] == old.encode():
+            lines[lineno - 1] = raw[:col] + new[old].encode() + raw[col + len(old) :]
+    note = "".join(
+        f"# (in this combined cell, this block's working variable `{a}` is called `{b}`, "
+        f"so that the {TITLES[a]} table is kept)\n"
+        for a, b in sorted(new.items())
+    )
+    return note + "\n".join(line.decode("utf-8") for line in lines)
 
 
 def _hashable(v: Any) -> Any:
