@@ -225,9 +225,9 @@ def eta_test(groups, y):
     ss_between = float(np.sum(counts * means**2))
     if not ss_total > 0:
         return np.nan, np.nan
-    ss_within = max(ss_total - ss_between, 0.0)
+    ss_within = np.float64(np.sum((yc - means[g]) ** 2))
     eta2 = min(ss_between / ss_total, 1.0)
-    with np.errstate(divide="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore"):
         f = (ss_between / (k - 1)) / (ss_within / (n - k))
     p = float(stats.f.sf(f, k - 1, n - k))
     return float(np.sqrt(eta2)), p
