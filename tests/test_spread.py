@@ -338,6 +338,8 @@ def test_readings_on_seeded_simulations():
     assert t.loc["normal", "reading"] == "mean close to median: no clear skew"
     assert "a few extreme values pull the mean down" in t.loc["sentinel", "reading"]
     assert "heavy tails or extreme values" in t.loc["sentinel", "reading"]
+    assert "min -999 looks like a missing-value code" in t.loc["sentinel", "reading"]
+    assert "missing-value code" not in t.loc["lognormal", "reading"]
     assert "not read as skew" in t.loc["scale", "reading"]
     assert t.loc["lognormal", "quartile_skew"] > 0 > t.loc["mirror", "quartile_skew"]
 
@@ -352,6 +354,9 @@ def test_demo_yield_read_as_right_skewed(demo_frame):
     assert "heavy tails or extreme values" in t.loc["yield_kg", "reading"]
     assert "yield_kg" in t.index and "pest_score" in t.index  # numeric-coded ordinal is included
     assert "site" in result.levels.index and "plot_id" not in result.levels.index
+    # the documented -999 sentinel in soil_ph is named, and pulls the mean below the median
+    assert "min -999 looks like a missing-value code" in t.loc["soil_ph", "reading"]
+    assert any("soil_ph" in f and "-999" in f for f in result.flags)
 
 
 # ------------------------------------------------------------------- code, chart, options

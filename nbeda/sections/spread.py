@@ -34,6 +34,8 @@ class SpreadResult(SectionResult):
 
     def tables(self) -> dict[str, pd.DataFrame]:
         out = {"Spread of numeric columns": self.table}
+        if len(self.table):
+            out["Reading of numeric columns"] = self.table[["count", "median", "mean", "reading"]]
         if len(self.levels):
             out["Levels of nominal, boolean and ordinal columns"] = self.levels
         return out
@@ -147,7 +149,9 @@ def build(ctx: Context, **_: Any) -> SpreadResult:
         "Levels: entropy is in bits (0 = one level, log₂(unique) = all levels equally common); "
         "evenness = entropy / log₂(unique).",
         "Reading rules (common practice): right/left skew when the mean lies outside the median's "
-        "interval and differs from the median by more than 0.1·std; heavy tails when std > 1.5 × mad_scaled.",
+        "interval and the quartiles lean the same way (quartile_skew beyond ±0.05); not read on "
+        "scales with ≤ 20 distinct values; heavy tails when std > 1.5 × mad_scaled; a min/max of "
+        "±999, ±9999 or ±99999 beyond 3·IQR is named as a likely missing-value code.",
     ]
     cautions = [
         "The median CI is distribution-free; the mean CI assumes the sample mean is roughly normal "
@@ -165,9 +169,16 @@ def build(ctx: Context, **_: Any) -> SpreadResult:
         inf_cols = [str(c) for c, v in zip(table.index, table["n_inf"], strict=True) if v > 0]
         if inf_cols:
             flags.append(f"infinite values set aside in: {', '.join(inf_cols[:10])}")
+        for label, reading in zip(table.index, table["reading"], strict=True):
+            for part in reading.split("; "):
+                if part.endswith("looks like a missing-value code"):
+                    flags.append(f"{label}: {part} (common practice) — it distorts mean and std")
         empty = [str(c) for c, v in zip(table.index, table["count"], strict=True) if v == 0]
         if empty:
             flags.append(f"no finite values in: {', '.join(empty[:10])}")
+    notes.append(
+        "Identifier, text, datetime, constant and empty columns are not summarised here (see Roles)."
+    )
     skipped = [
         i for i, r in enumerate(ctx.roles) if r in ("continuous", "discrete") and not ctx.is_numeric_coded(i)
     ]

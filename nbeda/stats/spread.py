@@ -60,6 +60,8 @@ Definitions (numeric table; ``n`` = number of finite values)
   - "std well above scaled MAD: heavy tails or extreme values" when
     std > 1.5·mad_scaled (≈ 1 for normal data);
   - "MAD is 0: at least half the values are equal" when mad = 0 < std;
+  - "min -999 looks like a missing-value code" when the min or max is one of
+    ±999, ±9999, ±99999 and lies beyond 3·IQR from the quartiles;
   - "all values equal", "a single value", "no finite values",
     "k infinite value(s) set aside".
 
@@ -277,6 +279,12 @@ def spread_reading(table):
                 parts.append("MAD is 0: at least half the values are equal")
             elif r["std"] > 1.5 * r["mad_scaled"]:
                 parts.append("std well above scaled MAD: heavy tails or extreme values")
+        for end in ("min", "max"):
+            # A classic missing-value code far outside the quartiles (beyond 3·IQR).
+            v = r[end]
+            far = v < r["q1"] - 3 * r["iqr"] or v > r["q3"] + 3 * r["iqr"]
+            if r["count"] > 1 and far and v in (-99999.0, -9999.0, -999.0, 999.0, 9999.0, 99999.0):
+                parts.append(f"{end} {v:g} looks like a missing-value code")
         if r["n_inf"] > 0:
             parts.append(f"{r['n_inf']} infinite value(s) set aside")
         words.append("; ".join(parts))
