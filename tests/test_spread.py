@@ -404,3 +404,17 @@ def test_no_warnings_on_awkward_columns():
     assert t.loc["one", "median"] == 3.0 and t.loc["one", "mode"] == 3.0 and np.isnan(t.loc["one", "std"])
     assert t.loc["zero_var", "std"] == 0 and t.loc["zero_var", "reading"] == "all values equal"
     assert t.loc["nullable", "count"] == 4
+
+
+def test_role_overrides_move_columns_between_tables(demo_frame):
+    """Role overrides propagate: a rating scale set to nominal moves to the levels table, a numeric
+    column set to nominal too; the emitted code (checked by ``_spread``) follows them."""
+    base = _spread(demo_frame)
+    moved = _spread(demo_frame, roles={"pest_score": "nominal", "irrigation_l": "nominal"})
+    assert "pest_score" in base.table.index and "pest_score" not in moved.table.index
+    assert {"pest_score", "irrigation_l"} <= set(moved.levels.index)
+    counts = demo_frame["pest_score"].value_counts()
+    assert moved.levels.loc["pest_score", "top"] == str(counts.idxmax())
+    assert moved.levels.loc["pest_score", "top_count"] == counts.max()
+    # numbers of the columns that stay are unaffected by the move
+    assert_same_table(moved.table.loc[["yield_kg"]], base.table.loc[["yield_kg"]], rtol=0)
