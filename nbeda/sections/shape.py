@@ -339,7 +339,7 @@ def build(ctx: Context, **_: Any) -> ShapeResult:
         "Transforms are suggested only when |skew| ≥ 0.5 (common practice): log or Box–Cox (λ by maximum "
         "likelihood) for strictly positive data, Yeo–Johnson (on values divided by their SD) otherwise.",
         "modes = peaks of a Gaussian kernel density (Silverman's robust bandwidth, 512-point grid, "
-        "peaks ≥ 5% of the highest).",
+        "a peak counts when its prominence is ≥ 10% of the highest; needs n ≥ 20).",
     ]
     if ctx.options.sample and ctx.options.sample < ctx.n_rows:
         notes.append(f"Computed on a seeded random sample of {int(ctx.options.sample):,} rows (seed {ctx.options.seed}).")

@@ -34,13 +34,20 @@ Rules (each documented here and in the emitted code):
   (``scipy.stats.yeojohnson``) on the values divided by their standard deviation
   (Yeo–Johnson is not scale-invariant; this makes λ unit-free).  λ is estimated
   on the same seeded sample of at most 5000 values; ``skew_after`` is the skew of
-  all values after the transform.  "none" too when no transform lowers |skew|.
+  all values after the transform.  "none" too when no transform lowers |skew|,
+  and with fewer than 8 values (too few to fit λ; our rule).  The candidate
+  columns (``log_skew``, ``boxcox_*``, ``yeojohnson_*``) are filled only when a
+  transform is called for.
 * ``modes``: peaks of a Gaussian kernel density on the (sampled) values, with
   Silverman's robust bandwidth 0.9·min(sd, IQR/1.34)·n^(−1/5) (Silverman 1986),
   widened to the smallest gap between levels for columns with ≤ 20 distinct
   values (so integer scales do not peak at every level), evaluated on 512 points
-  spanning the 0.5th–99.5th percentiles ± 3 bandwidths; a peak counts when it is
-  a local maximum at least 5% as high as the highest (common practice).
+  spanning the 0.5th–99.5th percentiles ± 3 bandwidths; a peak counts when its
+  prominence (its rise above the dip separating it from any higher peak,
+  ``scipy.signal.find_peaks``) is at least 10% of the highest peak (our rule,
+  calibrated on seeded normal, exponential and two-normal mixture samples: about
+  2% false second peaks at n = 50, none from n = 100).  Needs n ≥ 20 (our rule); the density is summed directly in numpy (the same curve as
+  ``scipy.stats.gaussian_kde`` with that bandwidth, up to a constant factor).
 * Histogram: Freedman–Diaconis bins (width 2·IQR·n^(−1/3), edges equal to
   ``numpy.histogram_bin_edges(bins="fd")``); Sturges' rule when IQR = 0; when
   that would give more than 200 bins (long tails), FD-width bins over the
@@ -49,11 +56,13 @@ Rules (each documented here and in the emitted code):
 
 from __future__ import annotations
 
+import warnings
 from typing import Any
 
 import numpy as np
 import pandas as pd
 from scipy import stats
+from scipy.signal import find_peaks
 
 from nbeda._context import Context
 from nbeda.stats._codegen import function_source, header, join_blocks, lit
@@ -138,7 +147,7 @@ def shape_moments(y):
     return float(g1), float(g2)
 
 
-def shape_modes(ys, grid=512, peak_fraction=0.05):
+def shape_modes(ys, grid=512, prominence=0.10):
     """Number of peaks of a Gaussian kernel density of ys (Silverman's robust bandwidth)."""
     n = ys.size
     sd = ys.std(ddof=1)
@@ -150,12 +159,13 @@ def shape_modes(ys, grid=512, peak_fraction=0.05):
         h = max(h, np.diff(levels).min())  # integer-like scales: one bump per level is not a mode
     if not (sd > 0 and h > 0):
         return 1
-    kde = stats.gaussian_kde(ys, bw_method=h / sd)
     at = np.linspace(q005 - 3 * h, q995 + 3 * h, grid)
-    dens = kde(at)
-    inner = dens[1:-1]
-    peak = (inner > dens[:-2]) & (inner >= dens[2:]) & (inner >= peak_fraction * dens.max())
-    return int(max(peak.sum(), 1))
+    # Gaussian kernel density (up to a constant factor, which does not move the peaks).
+    dens = np.exp(-0.5 * ((at[:, None] - ys[None, :]) / h) ** 2).sum(axis=1)
+    # A peak counts when it rises at least `prominence` x the highest peak above the dip
+    # that separates it from any higher peak.
+    peaks, _ = find_peaks(dens, prominence=prominence * dens.max())
+    return int(max(peaks.size, 1))
 
 
 def shape_of(x, seed=0, sample_max=5000, small_skew=0.5):
@@ -234,40 +244,45 @@ def shape_of(x, seed=0, sample_max=5000, small_skew=0.5):
     else:
         row["normality_test"] = "D'Agostino-Pearson K2"
         row["normality_stat"], row["normality_p"] = row["dagostino_stat"], row["dagostino_p"]
-    # Transforms: lambda on the sample, skew after on all values.
-    with np.errstate(all="ignore"):
+    # Transforms (only when |skew| >= small_skew and n >= 8): lambda on the sample, skew after on all values.
+    if g1 == g1 and abs(g1) >= small_skew and n >= 8:
+        with np.errstate(all="ignore"), warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            if y.min() > 0:
+                row["log_skew"] = shape_moments(np.log(y))[0]
+                lam = float(stats.boxcox(ys)[1])
+                t = stats.boxcox(y, lmbda=lam)
+                row["boxcox_lambda"] = lam
+                row["boxcox_skew"] = shape_moments(t)[0] if np.all(np.isfinite(t)) else nan
+            else:
+                z = y / y.std(ddof=1)
+                lam = float(stats.yeojohnson(z[pick] if n > sample_max else z)[1])
+                t = stats.yeojohnson(z, lmbda=lam)
+                row["yeojohnson_lambda"] = lam
+                row["yeojohnson_skew"] = shape_moments(t)[0] if np.all(np.isfinite(t)) else nan
+        if caught:
+            notes.append("the lambda fit hit a numerical limit: " + str(caught[0].message).split(".")[0])
         if y.min() > 0:
-            row["log_skew"] = shape_moments(np.log(y))[0]
-            lam = float(stats.boxcox(ys)[1])
-            t = stats.boxcox(y, lmbda=lam)
-            row["boxcox_lambda"] = lam
-            row["boxcox_skew"] = shape_moments(t)[0] if np.all(np.isfinite(t)) else nan
+            bc = abs(row["boxcox_skew"]) if row["boxcox_skew"] == row["boxcox_skew"] else np.inf
+            lg = abs(row["log_skew"]) if row["log_skew"] == row["log_skew"] else np.inf
+            if lg <= bc + 0.25:
+                best, lam, after = "log", 0.0, row["log_skew"]
+            else:
+                best, lam, after = "box-cox", row["boxcox_lambda"], row["boxcox_skew"]
         else:
-            z = y / y.std(ddof=1)
-            lam = float(stats.yeojohnson(z[pick] if n > sample_max else z)[1])
-            t = stats.yeojohnson(z, lmbda=lam)
-            row["yeojohnson_lambda"] = lam
-            row["yeojohnson_skew"] = shape_moments(t)[0] if np.all(np.isfinite(t)) else nan
-    if y.min() > 0:
-        bc = abs(row["boxcox_skew"]) if row["boxcox_skew"] == row["boxcox_skew"] else np.inf
-        lg = abs(row["log_skew"]) if row["log_skew"] == row["log_skew"] else np.inf
-        if lg <= bc + 0.25:
-            best, lam, after = "log", 0.0, row["log_skew"]
+            best, lam, after = "yeo-johnson", row["yeojohnson_lambda"], row["yeojohnson_skew"]
+        if after == after and abs(after) < abs(g1):
+            row["suggested_transform"], row["transform_lambda"], row["skew_after"] = best, lam, after
         else:
-            best, lam, after = "box-cox", row["boxcox_lambda"], row["boxcox_skew"]
+            row["suggested_transform"], row["skew_after"] = "none", g1
+            notes.append("no transform tried lowers the skew")
     else:
-        best, lam, after = "yeo-johnson", row["yeojohnson_lambda"], row["yeojohnson_skew"]
-    if not g1 == g1:
-        row["suggested_transform"] = "none"
-    elif abs(g1) < small_skew:
         row["suggested_transform"], row["skew_after"] = "none", g1
-    elif not (after == after and abs(after) < abs(g1)):
-        row["suggested_transform"], row["skew_after"] = "none", g1
-        notes.append("no transform tried lowers the skew")
-    else:
-        row["suggested_transform"], row["transform_lambda"], row["skew_after"] = best, lam, after
-    # Peaks of the smoothed density.
-    row["modes"] = shape_modes(ys)
+        if g1 == g1 and abs(g1) >= small_skew:
+            notes.append("fewer than 8 values: no transform suggested")
+    # Peaks of the smoothed density (n >= 20).
+    if n >= 20:
+        row["modes"] = shape_modes(ys)
     # The plain-words reading.
     words = []
     side = "right" if g1 > 0 else "left"
@@ -284,11 +299,12 @@ def shape_of(x, seed=0, sample_max=5000, small_skew=0.5):
         words.append("light-tailed")
     values, counts = np.unique(y, return_counts=True)
     top = counts.argmax()
-    if values.size >= 3 and top in (0, values.size - 1) and counts[top] >= 0.10 * n:
+    sole_top = (counts == counts[top]).sum() == 1
+    if values.size >= 3 and top in (0, values.size - 1) and counts[top] >= max(0.10 * n, 2) and sole_top:
         words.append(f"piled at its {'lower' if top == 0 else 'upper'} limit ({counts[top] / n:.0%} of values)")
     if row["modes"] == 2:
         words.append("bimodal")
-    elif row["modes"] > 2:
+    elif row["modes"] is not None and row["modes"] > 2:
         words.append(f"multimodal ({row['modes']} peaks)")
     if values.size <= 10:
         words.append(f"few distinct values ({values.size})")
@@ -544,7 +560,8 @@ _RULES = [
     "so 1e300-sized numbers cannot overflow; skew = adjusted Fisher-Pearson G1, kurtosis = excess G2;",
     "headline test Shapiro-Wilk for n <= 5000, else D'Agostino-Pearson K2 (Shapiro-Wilk then on a seeded",
     "sample of 5000); transforms skipped when |skew| < 0.5 (common practice); density peaks from a",
-    "Gaussian KDE with Silverman's robust bandwidth on 512 points, peaks >= 5% of the highest.",
+    "Gaussian KDE with Silverman's robust bandwidth on 512 points, peaks with prominence >= 10% of the",
+    "highest (n >= 20).",
 ]
 
 
@@ -580,7 +597,7 @@ shape = pd.DataFrame(
 """
     blocks = [
         header("Shape: distributions, skew, normality and transformations", ctx, frame_name, _RULES),
-        "# The per-column rules.",
+        "import warnings\nfrom scipy.signal import find_peaks\n\n# The per-column rules.",
         function_source(shape_moments),
         function_source(shape_modes),
         function_source(shape_of),
