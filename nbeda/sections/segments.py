@@ -20,12 +20,21 @@ share_of_total``; without one it is the balance table ``n, share, expected_n,
 pearson_residual`` (rows, share of rows, the count expected if the real levels
 were equally common, and the Pearson residual (n − expected)/√expected).
 
-Other tables: ``.balance``, ``.tests`` (indexed by test name, columns
-``statistic, dof, p_value, effect_size, effect_measure``; ``dof`` of the F tests
-is the numerator df, the denominator df is in ``.anova_table`` and the notes),
+Other tables: ``.balance``, ``.tests`` (indexed by test name — ``anova``,
+``welch_anova``, ``kruskal``, ``balance_chi2``, ``chi2``, ``fisher_exact``, those
+that apply — with columns ``statistic, dof, p_value, effect_size,
+effect_measure``; ``dof`` of the F tests is the numerator df, the denominator df
+is in ``.anova_table`` and the words; effect sizes: η² on the ``anova`` row, ω²
+(the less biased estimate of the same share, from the classic sums of squares)
+on the ``welch_anova`` row, the rank ε² = H/(n − 1) on ``kruskal``, Cohen's w on
+``balance_chi2``, plain Cramér's V on ``chi2``, the odds ratio on
+``fisher_exact``),
 ``.anova_table``, ``.effects``, ``.pairs`` (Tukey HSD, computed on first use),
 ``.crosstab``, ``.row_pct``, ``.col_pct``, ``.expected``, ``.residuals``,
-``.pivot``; the plain-words reading in ``.summary`` and the leader in ``.leader``.
+``.pivot``; the plain-words reading in ``.summary`` and the leader in ``.leader``
+(the segment with the highest mean; its lead over the runner-up is "supported"
+when their Tukey HSD adjusted p-value is below 1 − confidence, 0.05 by default).
+Segments smaller than 5 values are called tiny (common practice).
 """
 
 from __future__ import annotations
