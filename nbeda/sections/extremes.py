@@ -290,7 +290,10 @@ def _rows_table(ctx: Context, parts: dict[str, Any]) -> pd.DataFrame:
     positions = parts["positions"]
     index = ctx.frame.index
     r, c = scan["cell_row"], scan["cell_col"]
-    values = np.array([ctx.float_values(positions[k])[i] for i, k in zip(r.tolist(), c.tolist())], dtype="float64")
+    values = np.full(r.size, np.nan)
+    for k in np.unique(c).tolist():  # one gather per flagged column
+        sel = c == k
+        values[sel] = ctx.float_values(positions[k])[r[sel]]
     rule_arr = np.asarray(scan["rule"], dtype=object)
     rules = np.where(np.isinf(values), "infinite", rule_arr[c] if c.size else np.zeros(0, dtype=object))
     uni = pd.DataFrame(

@@ -178,13 +178,14 @@ def cluster_notes(v, lower, upper, median, flagged):
         first = int(np.searchsorted(v, upper, side="right"))
         if 0 < first < v.size:
             seg = v[first - 1:]
-            with np.errstate(divide="ignore", invalid="ignore"):
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
                 jump = (seg[:-1] > 0) & (seg[1:] / seg[:-1] >= 3.0)
             at = np.flatnonzero(jump)
             if at.size:
                 cluster = seg[at[0] + 1:]
-                ratio = float(np.median(cluster)) / median
-                k = int(np.round(np.log10(ratio)))
+                with np.errstate(over="ignore"):
+                    ratio = float(np.median(cluster)) / median
+                k = int(np.round(np.log10(ratio))) if np.isfinite(ratio) else 0
                 if cluster.size >= 2 and 1 <= k <= 3 and abs(np.log10(ratio) - k) <= 0.4:
                     notes.append(
                         f"possible unit error: {cluster.size} high values ({cluster[0]:.4g} to "
@@ -195,13 +196,14 @@ def cluster_notes(v, lower, upper, median, flagged):
         last = int(np.searchsorted(v, lower, side="left"))
         if 0 < last < v.size and v[0] > 0:
             seg = v[: last + 1]
-            with np.errstate(divide="ignore", invalid="ignore"):
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
                 jump = seg[1:] / seg[:-1] >= 3.0
             at = np.flatnonzero(jump)
             if at.size:
                 cluster = seg[: at[-1] + 1]
-                ratio = median / float(np.median(cluster))
-                k = int(np.round(np.log10(ratio)))
+                with np.errstate(over="ignore"):
+                    ratio = median / float(np.median(cluster))
+                k = int(np.round(np.log10(ratio))) if np.isfinite(ratio) else 0
                 if cluster.size >= 2 and 1 <= k <= 3 and abs(np.log10(ratio) - k) <= 0.4:
                     notes.append(
                         f"possible unit error: {cluster.size} low values ({cluster[0]:.4g} to "
