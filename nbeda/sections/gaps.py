@@ -598,9 +598,8 @@ def build(ctx: Context, **_: Any) -> GapsResult:
         mcar = MCARTest(G.little_mcar(x, names=[ctx.labels[j] for j in numeric]))
         nullity = G.nullity_correlation(miss, ctx.labels)
         disguised = {}
-        for j in range(k):
-            if table["disguised"].iloc[j]:
-                disguised[j] = G.disguised_missing(frame.iloc[:, j])[1]
+        for j in np.flatnonzero(table["disguised"].to_numpy() > 0):
+            disguised[int(j)] = G.disguised_missing(frame.iloc[:, j])[1]
     total = int(miss.sum())
     complete = int((~miss.any(axis=1)).sum()) if k else n
     flags: list[str] = []
@@ -616,17 +615,19 @@ def build(ctx: Context, **_: Any) -> GapsResult:
             f"{total:,} missing cells ({100 * total / (n * k):.2f}% of all cells); {pcounts.size:,} distinct "
             "missingness patterns" + (" (top 20 shown, the rest pooled as 'other')." if pcounts.size > 20 else ".")
         )
-    for j in range(k):
+    t_missing, t_disg = table["missing"].to_numpy(), table["disguised"].to_numpy()
+    t_values, t_with, t_hint = (table[c].to_numpy(dtype=object) for c in ("disguised_values", "mar_with", "mar_hint"))
+    for j in np.flatnonzero((t_missing == n) | (t_disg > 0) | (t_with != "")) if n else []:
         label = _label(ctx, j)
-        if n and table["missing"].iloc[j] == n:
+        if t_missing[j] == n:
             flags.append(f"{label}: every value is missing.")
-        if table["disguised"].iloc[j]:
+        if t_disg[j]:
             flags.append(
-                f"{label}: {table['disguised'].iloc[j]:,} disguised missing value(s): {table['disguised_values'].iloc[j]} "
+                f"{label}: {t_disg[j]:,} disguised missing value(s): {t_values[j]} "
                 "— reported, not converted (see .code_convert())."
             )
-        if table["mar_with"].iloc[j] and not str(table["mar_hint"].iloc[j]).startswith("weak"):
-            flags.append(str(table["mar_hint"].iloc[j]) + ".")
+        if t_with[j] and not str(t_hint[j]).startswith("weak"):
+            flags.append(str(t_hint[j]) + ".")
     if n_disg and total == 0 and n and k:
         notes.append(f"…but {n_disg:,} disguised missing value(s) stand in for gaps (see the flags).")
     notes.append(mcar.summary())

@@ -117,14 +117,15 @@ def as_float(s):
     """A numeric-coded column as float64 (NaN for missing; durations in seconds)."""
     if pd.api.types.is_timedelta64_dtype(s.dtype):
         return s.dt.total_seconds().to_numpy(dtype="float64", na_value=np.nan)
-    return s.astype("float64").to_numpy(dtype="float64", na_value=np.nan)
+    return s.to_numpy(dtype="float64", na_value=np.nan)
 
 
 def column_kinds(frame, roles):
     """Split column positions into numeric and categorical ones, from the Roles tab's roles."""
     numeric, categorical = [], []
+    dtypes = list(frame.dtypes)
     for j, role in enumerate(roles):
-        dt = frame.dtypes.iloc[j]
+        dt = dtypes[j]
         if isinstance(dt, pd.CategoricalDtype):
             num_coded = pd.api.types.is_numeric_dtype(dt.categories.dtype) and not pd.api.types.is_bool_dtype(
                 dt.categories.dtype
@@ -167,7 +168,7 @@ def disguised_missing(s):
         return mask, [f for f in found if f[1] > 0]
     is_number = pd.api.types.is_numeric_dtype(dt) and not pd.api.types.is_complex_dtype(dt)
     if is_number:
-        v = s.astype("float64").to_numpy(dtype="float64", na_value=np.nan)
+        v = s.to_numpy(dtype="float64", na_value=np.nan)
         x = v[np.isfinite(v)]
         if x.size == 0:
             return none
@@ -357,7 +358,6 @@ def mar_tests(frame, miss, numeric, categorical, min_group=5, max_levels=30):
 
 def mar_hint(frame, miss, tests, x, alpha=0.05):
     """Plain words for the strongest BH-significant association of 'x is missing' (or why none)."""
-    labels = list(frame.columns)
     n, n_miss = miss.shape[0], int(miss[:, x].sum())
     if n_miss == 0:
         return "no gaps", "", np.nan
@@ -377,7 +377,7 @@ def mar_hint(frame, miss, tests, x, alpha=0.05):
     best = sig.sort_values(["effect", "p_adj"], ascending=[False, True], kind="mergesort").iloc[0]
     y, p = int(best["y"]), float(best["p_adj"])
     ptext = "BH-adjusted p < 0.001" if p < 0.001 else f"BH-adjusted p = {p:.3f}"
-    xl, yl = str(labels[x]), str(labels[y])
+    xl, yl = str(frame.columns[x]), str(frame.columns[y])
     if best["test"] == "chi-squared":
         level, rate, rest = best["detail"]
         ratio = rate / rest if rest > 0 else np.inf
@@ -443,44 +443,64 @@ def em_normal(z, max_iter=1000, tol=1e-9):
     """ML mean and covariance of a multivariate normal from data with gaps (EM algorithm).
 
     z: rows × p float array, NaN = missing (each row has at least one observed value).
-    The E-step works on per-pattern sums (count, sum, cross-products), so each
-    iteration costs O(patterns · p³) whatever the number of rows.
-    Returns (mean, cov, iterations, converged, groups) where groups lists
-    (observed column indices, rows, sum, cross-products) per pattern.
+    The E-step works on per-pattern sums (count, sum, cross-products of the observed
+    part), batched over all patterns with the same number of observed columns, so an
+    iteration costs a few numpy calls per such group whatever the number of rows.
+    Returns (mean, cov, iterations, converged, groups); groups maps the number of
+    observed columns q to (O, M, n_g, S, Q): observed and missing column indices per
+    pattern (G × q, G × (p − q)), rows, sums (G × q) and cross-products (G × q × q).
     """
     n, p = z.shape
     pats, counts, pid = missing_patterns(np.isnan(z))
     order = np.argsort(pid, kind="stable")
     bounds = np.r_[0, np.cumsum(counts)]
-    groups = []
-    for g in range(counts.size):
-        rows = z[order[bounds[g] : bounds[g + 1]]]
-        o = np.flatnonzero(~pats[g])
-        zo = rows[:, o]
-        groups.append((o, int(counts[g]), zo.sum(axis=0), zo.T @ zo))
+    z0 = np.where(np.isnan(z), 0.0, z)[order]
+    nobs = (~pats).sum(axis=1)
+    groups = {}
+    for q in np.unique(nobs):
+        gs = np.flatnonzero(nobs == q)
+        o = np.array([np.flatnonzero(~pats[g]) for g in gs], dtype=np.int64).reshape(gs.size, q)
+        m = np.array([np.flatnonzero(pats[g]) for g in gs], dtype=np.int64).reshape(gs.size, p - q)
+        sums = np.empty((gs.size, q))
+        cross = np.empty((gs.size, q, q))
+        for i, g in enumerate(gs):  # one pass over the rows, pattern by pattern
+            rows = z0[bounds[g] : bounds[g + 1]][:, o[i]]
+            sums[i] = rows.sum(axis=0)
+            cross[i] = rows.T @ rows
+        groups[int(q)] = (o, m, counts[gs].astype(np.float64), sums, cross)
+    # The observed parts never change: their sums are added once.
+    t1_fixed, t2_fixed = np.zeros(p * 1), np.zeros(p * p)
+    for q, (o, m, ng, sums, cross) in groups.items():
+        t1_fixed += np.bincount(o.ravel(), weights=sums.ravel(), minlength=p)
+        t2_fixed += np.bincount((o[:, :, None] * p + o[:, None, :]).ravel(), weights=cross.ravel(), minlength=p * p)
     mu, cov = np.zeros(p), np.eye(p)
     it, converged = 0, False
     for it in range(1, max_iter + 1):
-        t1, t2 = np.zeros(p), np.zeros((p, p))
-        for o, ng, s, q in groups:
-            mis = np.setdiff1d(np.arange(p), o)
-            if mis.size == 0:
-                t1 += s
-                t2 += q
+        t1, t2 = t1_fixed.copy(), t2_fixed.copy()
+        for q, (o, m, ng, sums, cross) in groups.items():
+            if q == p:
                 continue
-            b = np.linalg.solve(cov[np.ix_(o, o)], cov[np.ix_(o, mis)]).T  # regression of missing on observed
-            c = mu[mis] - b @ mu[o]
-            resid = cov[np.ix_(mis, mis)] - b @ cov[np.ix_(o, mis)]
-            sm = ng * c + b @ s
-            t1[o] += s
-            t1[mis] += sm
-            t2[np.ix_(o, o)] += q
-            om = np.outer(s, c) + q @ b.T
-            t2[np.ix_(o, mis)] += om
-            t2[np.ix_(mis, o)] += om.T
-            t2[np.ix_(mis, mis)] += ng * (np.outer(c, c) + resid) + np.outer(c, b @ s) + np.outer(b @ s, c) + b @ q @ b.T
+            s_oo = cov[o[:, :, None], o[:, None, :]]
+            s_om = cov[o[:, :, None], m[:, None, :]]
+            s_mm = cov[m[:, :, None], m[:, None, :]]
+            bt = np.linalg.solve(s_oo, s_om)  # G × q × m: regression of missing on observed
+            b = bt.transpose(0, 2, 1)
+            c = mu[m] - np.einsum("gmq,gq->gm", b, mu[o])
+            resid = s_mm - b @ s_om
+            bs = np.einsum("gmq,gq->gm", b, sums)
+            t1 += np.bincount(m.ravel(), weights=(ng[:, None] * c + bs).ravel(), minlength=p)
+            om = sums[:, :, None] * c[:, None, :] + cross @ bt
+            t2 += np.bincount((o[:, :, None] * p + m[:, None, :]).ravel(), weights=om.ravel(), minlength=p * p)
+            t2 += np.bincount((m[:, :, None] * p + o[:, None, :]).ravel(), weights=om.transpose(0, 2, 1).ravel(), minlength=p * p)
+            mm = (
+                ng[:, None, None] * (c[:, :, None] * c[:, None, :] + resid)
+                + c[:, :, None] * bs[:, None, :]
+                + bs[:, :, None] * c[:, None, :]
+                + b @ cross @ bt
+            )
+            t2 += np.bincount((m[:, :, None] * p + m[:, None, :]).ravel(), weights=mm.ravel(), minlength=p * p)
         new_mu = t1 / n
-        new_cov = t2 / n - np.outer(new_mu, new_mu)
+        new_cov = t2.reshape(p, p) / n - np.outer(new_mu, new_mu)
         new_cov = (new_cov + new_cov.T) / 2.0
         delta = max(np.max(np.abs(new_mu - mu)), np.max(np.abs(new_cov - cov)))
         mu, cov = new_mu, new_cov
@@ -535,12 +555,14 @@ def little_mcar(x, names=None):
         return out
     out["mean"] = mu * scale + centre
     out["cov"] = cov * np.outer(scale, scale)
-    d2, dof = 0.0, -p
-    for o, ng, s, _ in groups:
-        diff = s / ng - mu[o]
-        d2 += ng * float(diff @ np.linalg.solve(cov[np.ix_(o, o)], diff))
-        dof += o.size
-    out["patterns"] = len(groups)
+    d2, dof, n_pat = 0.0, -p, 0
+    for q, (o, _, ng, sums, _) in groups.items():
+        diff = sums / ng[:, None] - mu[o]
+        sol = np.linalg.solve(cov[o[:, :, None], o[:, None, :]], diff[:, :, None])[:, :, 0]
+        d2 += float(np.sum(ng * np.sum(diff * sol, axis=1)))
+        dof += q * o.shape[0]
+        n_pat += o.shape[0]
+    out["patterns"] = n_pat
     if dof <= 0:
         out["reason"] = "not applicable: only one missingness pattern among the rows with numeric values"
         return out
