@@ -87,3 +87,30 @@ def test_code_contract_holds_for_every_section(frame):
         assert name in ns, f"{name}: emitted code did not assign `{name}`"
         assert_same_table(ns[name], result.table)
         assert_unchanged(frame, snap)
+
+
+@settings(max_examples=30, deadline=None, suppress_health_check=[HealthCheck.too_slow, HealthCheck.data_too_large])
+@given(frame=frames())
+def test_spread_is_quiet_and_consistent(frame):
+    """Spread on any generated frame: no warning escapes, counts add up (finite + ±inf + missing =
+    rows) and the order statistics are ordered (min ≤ q1 ≤ median ≤ q3 ≤ max, median inside its CI)."""
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        result = Report(frame).section("spread")
+        result.to_html(with_chart=False)
+    t = result.table
+    positions = result.ctx.numeric_positions()
+    assert len(t) == len(positions)
+    for j, pos in enumerate(positions):
+        values = result.ctx.float_values(pos)
+        row = t.iloc[j]
+        assert row["count"] == np.isfinite(values).sum() and row["n_inf"] == np.isinf(values).sum()
+        if row["count"]:
+            chain = row[["min", "q1", "median", "q3", "max"]].to_numpy(dtype=float)
+            assert np.all(np.diff(chain) >= 0)
+            eps = 1e-12 * max(abs(row["min"]), abs(row["max"]))
+            assert row["min"] - eps <= row["mean"] <= row["max"] + eps
+        if row["median_ci_low"] == row["median_ci_low"]:  # not NaN
+            assert row["median_ci_low"] <= row["median"] <= row["median_ci_high"]

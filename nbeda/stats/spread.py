@@ -107,7 +107,14 @@ LEVELS_COLUMNS = ["count", "unique", "top", "top_count", "top_share", "entropy",
 
 
 def spread_table(x, confidence=0.95):
-    """Spread statistics of every column of the float frame ``x`` (one row per column)."""
+    """Spread statistics of every column of the float frame ``x`` (one row per column).
+
+    Missing values and ±inf are set aside (n_inf counts ±inf). Quantiles interpolate linearly
+    (pandas' default). mean CI: t-interval. median CI: order statistics [x_(l), x_(n+1-l)] with
+    l = binom.ppf((1 - confidence) / 2, n, 1/2), so its coverage is >= confidence for any
+    continuous distribution. trimmed_mean cuts floor(0.1·n) values from each end. mad is raw;
+    mad_scaled = mad / norm.ppf(0.75) (about 1.4826·mad). mode ties go to the smallest value.
+    """
     columns = [
         "count", "mean", "mean_ci_low", "mean_ci_high", "median", "median_ci_low",
         "median_ci_high", "mode", "trimmed_mean", "std", "var", "sem", "min", "q1", "q3", "max",
