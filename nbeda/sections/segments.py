@@ -486,6 +486,8 @@ def _build_positions(
         metric_pos = against_pos = None
     res = S.compute_segments(ctx, by_pos, metric_pos, against_pos)
     result = SegmentsResult(ctx, res, notes=list(choice_notes))
+    if ctx.options.sample is not None and ctx.options.sample < ctx.n_rows:
+        result.notes.append("Segments use every row (group summaries are cheap): the sample option does not apply.")
     if by_pos is None:
         result.notes.insert(
             0,

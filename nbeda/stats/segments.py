@@ -474,14 +474,17 @@ def _codes(ctx: Context, pos: int) -> tuple[np.ndarray, int]:
 def against_default(ctx: Context, by_pos: int) -> tuple[int | None, float]:
     """The candidate column (by :func:`by_candidates`) most associated with ``by``.
 
-    Association is the bias-corrected Cramér's V (Bergsma 2013) of the two
-    columns' raw values (missing as a level).  Returns (position, V).
+    Association is the bias-corrected Cramér's V (Bergsma 2013) of the segments
+    of ``by`` against each candidate's raw values (missing as a level).
+    Returns (position, V).
     """
     others = by_candidates(ctx, exclude=(by_pos,))
     if not others or ctx.n_rows < 3:
         return None, float("nan")
-    a, ka = _codes(ctx, by_pos)
-    if ka < 2 or ka > 10_000:
+    by_labels, by_order, _ = segment_labels(ctx.series(by_pos), segment_mode(ctx, by_pos), MAX_LEVELS, N_BINS)
+    a = pd.Categorical(by_labels, categories=by_order).codes.astype("int64")
+    ka = len(by_order)
+    if ka < 2:
         return None, float("nan")
     best, best_v = None, -1.0
     n = float(ctx.n_rows)
