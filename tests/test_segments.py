@@ -323,9 +323,9 @@ def test_demo_defaults_show_site_balance_and_dependent_cross_tab(demo_frame):
     assert any(s.startswith("Northgate holds 36% of rows") for s in r.summary)
     assert r.tests.loc["balance_chi2", "p_value"] < 1e-10
     assert any("exploratory" in n for n in r.notes)  # the automatic against was chosen by looking
-    # the sum leader is not the mean leader: the caution says it is simply larger
-    if r.table["sum"].idxmax() != r.table["mean"].idxmax():
-        assert any("simply larger" in c for c in r.cautions)
+    # Northgate (the largest site) holds the largest total irrigation but not the highest mean
+    assert r.table["sum"].idxmax() == "Northgate" != r.leader["segment"]
+    assert any(c.startswith("Northgate holds the largest total") and "simply larger" in c for c in r.cautions)
     assert_unchanged(demo_frame, snap)
 
 
@@ -485,3 +485,24 @@ def test_html_escapes_hostile_labels_and_panel_builds():
     before = panel.children[1].value
     against_dd.value = -1  # "(none)": the cross-tab disappears
     assert panel.children[1].value != before and "Cross-tab" not in panel.children[1].value
+
+
+def test_charts_are_small_aggregates_with_ci_bars_stacked_shares_and_heatmap(demo_frame):
+    """Charts carry one row per segment (or cell), never row-level data; no pie charts."""
+    r = build(Context(demo_frame), by="site", metric="yield_kg", against="soil_grade")
+    means = r.chart().to_dict()
+    marks = [layer["mark"]["type"] if isinstance(layer["mark"], dict) else layer["mark"] for layer in means["layer"]]
+    assert marks == ["bar", "rule"]
+    rows = next(iter(means["datasets"].values()))
+    assert len(rows) == len(r.table)
+    got = {row["segment"]: (row["ci_low"], row["ci_high"]) for row in rows}
+    for g in r.table.index:
+        assert got[g] == pytest.approx((r.table.loc[g, "ci_low"], r.table.loc[g, "ci_high"]))
+    shares = r.shares_chart().to_dict()
+    assert shares["encoding"]["x"]["stack"] == "normalize"
+    assert len(next(iter(shares["datasets"].values()))) == r.crosstab.size
+    heat = r.residuals_chart().to_dict()
+    cells = next(iter(heat["datasets"].values()))
+    assert len(cells) == r.crosstab.size
+    assert sum(c["beyond_2"] for c in cells) == int((r.residuals.abs() > 2).to_numpy().sum()) > 0
+    assert "arc" not in str(means) + str(shares) + str(heat)
