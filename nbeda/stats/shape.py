@@ -547,7 +547,7 @@ def date_counts(ctx: Context, i: int, max_months: int = 120) -> tuple[pd.DataFra
         c = np.bincount(years - years.min())
         labels = [f"{years.min() + k:04d}" for k in range(c.size)]
     per_period = pd.DataFrame({"period": labels, "count": c.astype("int64")})
-    wd = np.bincount(t.dt.dayofweek.astype("int64").to_numpy(), minlength=7)
+    wd = np.bincount(t.dt.day_of_week.astype("int64").to_numpy(), minlength=7)
     per_weekday = pd.DataFrame({"weekday": list(WEEKDAYS), "count": wd.astype("int64")})
     return per_period, per_weekday
 
