@@ -192,7 +192,7 @@ def tab_body(report: Any, name: str, *, compute: bool = True, svg_prefix: str | 
             "pending",
             title,
             message=(
-                f"{title} was not opened while the kernel was running. Open it in a live notebook, "
+                f"{title} was not computed when this copy was made. Open it in a live notebook, "
                 "or write every tab to one file with df.eda.report().to_html('report.html')."
             ),
         )

@@ -110,6 +110,7 @@ class ReportWidget(widgets.VBox):  # type: ignore[misc]
         self.tab.selected_index = self.names.index(initial)
         super().__init__([self.header, self.tab])
         self.add_class("nbeda-live")
+        self.add_class(f"nbeda-live-{self.model_id}")
         self.tab.observe(self._on_select, names="selected_index")
         self.compute(initial)
 
@@ -180,13 +181,51 @@ class ReportWidget(widgets.VBox):  # type: ignore[misc]
                 bodies[name] = self._static_body(name)
         return report_fragment(self.report, compute=False, live=False, bodies=bodies)
 
-    def _repr_mimebundle_(self, **kwargs: Any) -> dict[str, Any]:
-        data: dict[str, Any] = super()._repr_mimebundle_(**kwargs)
+    def fallback_html(self) -> str:
+        """The saved static copy, hidden by CSS while this live widget is on the page.
+
+        Shown wherever the widget cannot be drawn: a notebook reopened in JupyterLab
+        without saved widget state ("model not found"), nbconvert/nbviewer exports,
+        viewers with no widget support.
+        """
+        mid = esc(self.model_id)
         try:
-            data["text/html"] = self.static_html()
+            body = self.static_html()
         except Exception as exc:  # the live widget must show even if the fallback fails
-            data["text/html"] = f"<pre>{esc(type(exc).__name__)}: {esc(exc)}</pre>"
+            body = f"<pre>{esc(type(exc).__name__)}: {esc(exc)}</pre>"
+        return (
+            f"<div class='nbeda-fallback nbeda-fallback-{mid}'><style>"
+            f"body:has(.nbeda-live-{mid}) .nbeda-fallback-{mid} {{ display: none !important; }}"
+            f"body:has(.nbeda-live-{mid}) .jp-OutputArea-child:has(.nbeda-fallback-{mid}) "
+            "{ display: none !important; }</style>"
+            "<div class='nbeda'><div class='nb-hint'>Static copy of the nbeda report (the live widget "
+            "needs a running kernel); tabs opened after it was shown are not included.</div></div>"
+            f"{body}</div>"
+        )
+
+    def _repr_mimebundle_(self, **kwargs: Any) -> dict[str, Any]:
+        """Widget view plus the static copy as ``text/html`` (for tools that ask for one bundle)."""
+        data: dict[str, Any] = super()._repr_mimebundle_(**kwargs)
+        data["text/html"] = self.fallback_html()
         return data
+
+    def _ipython_display_(self) -> None:
+        """Two outputs: the live widget, then its static copy (hidden while the widget is live).
+
+        JupyterLab always prefers the widget view of a bundle, even when the widget's model is
+        gone, so the copy has to be an output of its own to be seen in a reopened notebook.
+        """
+        from IPython.display import display
+
+        live: dict[str, Any] = super()._repr_mimebundle_()
+        display(live, raw=True)
+        display(
+            {
+                "text/html": self.fallback_html(),
+                "text/plain": f"(static copy of the nbeda report: {self._header_text()})",
+            },
+            raw=True,
+        )
 
     def __repr__(self) -> str:
         done = sorted(self.computed, key=self.names.index)

@@ -219,9 +219,29 @@ def test_static_fallback_in_the_display_bundle(small_frame):
     for title in TITLES.values():
         assert f">{title}</label>" in fallback
     assert "<svg" in fallback and "nb-table" in fallback  # the Roles tab, computed
-    assert fallback.count("was not opened while the kernel was running") == 6
+    assert fallback.count("was not computed when this copy was made") == 6
     w.select("spread")
-    assert w._repr_mimebundle_()["text/html"].count("was not opened while the kernel was running") == 5
+    assert w._repr_mimebundle_()["text/html"].count("was not computed when this copy was made") == 5
+
+
+def test_display_publishes_the_widget_and_a_static_copy(small_frame):
+    """JupyterLab prefers the widget view even when its model is gone, so the copy is its own output."""
+    from IPython.core.interactiveshell import InteractiveShell
+    from IPython.utils.capture import capture_output
+
+    InteractiveShell.instance()  # display() publishes only inside a shell
+    w = ReportWidget(Report(small_frame))
+    with capture_output() as cap:
+        w._ipython_display_()
+    live, copy = (o.data for o in cap.outputs)
+    assert live["application/vnd.jupyter.widget-view+json"]["model_id"] == w.model_id
+    assert "text/html" not in live
+    mid = w.model_id
+    assert f"nbeda-live-{mid}" in w._dom_classes
+    html_copy = copy["text/html"]
+    assert f"body:has(.nbeda-live-{mid}) .nbeda-fallback-{mid} {{ display: none !important; }}" in html_copy
+    assert f"class='nbeda-fallback nbeda-fallback-{mid}'" in html_copy
+    assert "<svg" in html_copy and "nb-table" in html_copy and "<script" not in html_copy
 
 
 def test_interactive_charts_are_offline_and_leave_altair_alone(small_frame):
