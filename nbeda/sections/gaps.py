@@ -56,8 +56,9 @@ class MCARTest:
             else "no evidence against completely-at-random gaps in the numeric columns (which does not prove it)"
         )
         extra = f" ({v['reason']})" if v["reason"] else ""
+        rows = f"a seeded random sample of {v['rows']:,} rows" if v["sampled"] else f"{v['rows']:,} rows"
         return (
-            f"Little's MCAR test on {len(v['columns'])} numeric columns, {v['rows']:,} rows, "
+            f"Little's MCAR test on {len(v['columns'])} numeric columns, {rows}, "
             f"{v['patterns']} patterns: d² = {v['statistic']:.2f} on {v['dof']} degrees of freedom, "
             f"{ptext}: {verdict}{extra}."
         )
@@ -272,7 +273,7 @@ gaps, gaps_patterns, gaps_tests = gaps_tables({frame_name}, roles)
 # Little's MCAR test on the numeric columns (ML mean and covariance by EM).
 numeric, categorical = column_kinds({frame_name}, roles)
 x = np.column_stack([as_float({frame_name}.iloc[:, j]) for j in numeric]) if numeric else np.empty((len({frame_name}), 0))
-gaps_mcar = little_mcar(x, names=[{frame_name}.columns[j] for j in numeric])
+gaps_mcar = little_mcar(x, names=[{frame_name}.columns[j] for j in numeric], seed={ctx.options.seed!r})
 
 # Which columns go missing together: correlation of the 0/1 missing indicators.
 gaps_nullity = nullity_correlation({frame_name}.isna().to_numpy(dtype=bool), list({frame_name}.columns))
@@ -595,7 +596,7 @@ def build(ctx: Context, **_: Any) -> GapsResult:
         pmat, pcounts, _ = G.missing_patterns(miss)
         numeric, _cats = G.column_kinds(frame, roles)
         x = np.column_stack([G.as_float(frame.iloc[:, j]) for j in numeric]) if numeric else np.empty((n, 0))
-        mcar = MCARTest(G.little_mcar(x, names=[ctx.labels[j] for j in numeric]))
+        mcar = MCARTest(G.little_mcar(x, names=[ctx.labels[j] for j in numeric], seed=ctx.options.seed))
         nullity = G.nullity_correlation(miss, ctx.labels)
         disguised = {}
         for j in np.flatnonzero(table["disguised"].to_numpy() > 0):

@@ -58,11 +58,15 @@ the hint starts with "weak association:" — significant only through sample siz
 *Little's MCAR test* (:func:`little_mcar`; Little 1988, JASA 83:1198–1202):
 ML mean and covariance of the numeric columns by EM (:func:`em_normal`), then
 d² = Σ_g n_g (ȳ_g − μ̂_g)ᵀ Σ̂_g⁻¹ (ȳ_g − μ̂_g) over the missingness patterns g,
-with Σ_g (observed variables per pattern) − p degrees of freedom.  It is *not
-applicable* (with the reason) when there are fewer than two numeric columns,
-no numeric column has gaps, fewer than p + 1 complete rows anchor the p means
-and p(p+1)/2 covariances, the EM covariance is singular (collinear columns),
-or only one pattern remains.
+with Σ_g (observed variables per pattern) − p degrees of freedom.  Σ̂ is the ML
+estimate (divisor n).  Non-finite values are set aside as missing; rows with
+no observed numeric value are left out; beyond 50,000 such rows the test runs
+on a seeded random sample of 50,000 of them (the same draw in the emitted
+code).  It is *not applicable* (with the reason) when there are fewer than two
+numeric columns with varying values, no numeric column has gaps, fewer than
+p + 1 complete rows anchor the p means and p(p+1)/2 covariances, the patterns
+are too many for the per-pattern EM sums (patterns × p² > 25 million), the EM
+covariance is singular (collinear columns), or only one pattern remains.
 """
 
 from __future__ import annotations
@@ -232,9 +236,15 @@ def missing_patterns(miss):
     if k == 0:
         return np.zeros((1, 0), dtype=bool), np.array([n], dtype=np.int64), np.zeros(n, dtype=np.int64)
     packed = np.packbits(miss, axis=1)
-    _, first, inverse, counts = np.unique(
-        packed, axis=0, return_index=True, return_inverse=True, return_counts=True
-    )
+    if packed.shape[1] <= 8:  # up to 64 columns: one 64-bit key per row, a 1-D unique
+        wide = np.zeros((n, 8), dtype=np.uint8)
+        wide[:, : packed.shape[1]] = packed
+        keys = wide.view(">u8").ravel()
+        _, first, inverse, counts = np.unique(keys, return_index=True, return_inverse=True, return_counts=True)
+    else:
+        _, first, inverse, counts = np.unique(
+            packed, axis=0, return_index=True, return_inverse=True, return_counts=True
+        )
     order = np.lexsort((np.arange(counts.size), -counts))
     rank = np.empty_like(order)
     rank[order] = np.arange(order.size)
@@ -283,7 +293,7 @@ def mar_tests(frame, miss, numeric, categorical, min_group=5, max_levels=30):
         if m < 2 * min_group:
             continue
         vo = v[ok]
-        order = np.argsort(vo, kind="mergesort")  # sort once: ranks and ties
+        order = np.argsort(vo)  # sort once: ranks and ties (tied values share their mean rank)
         sv = vo[order]
         starts = np.r_[0, np.flatnonzero(sv[1:] != sv[:-1]) + 1]
         sizes = np.diff(np.r_[starts, m])
@@ -454,19 +464,21 @@ def em_normal(z, max_iter=1000, tol=1e-9):
     pats, counts, pid = missing_patterns(np.isnan(z))
     order = np.argsort(pid, kind="stable")
     bounds = np.r_[0, np.cumsum(counts)]
-    z0 = np.where(np.isnan(z), 0.0, z)[order]
+    z0 = np.where(np.isnan(z), 0.0, z)[order]  # rows grouped by pattern, gaps as 0
+    starts = bounds[:-1]
+    sums_all = np.add.reduceat(z0, starts, axis=0)  # G × p sums per pattern
+    cross_all = np.empty((counts.size, p, p))  # G × p × p cross-products per pattern
+    for i in range(p):
+        for j in range(i, p):
+            cross_all[:, i, j] = cross_all[:, j, i] = np.add.reduceat(z0[:, i] * z0[:, j], starts)
     nobs = (~pats).sum(axis=1)
     groups = {}
     for q in np.unique(nobs):
         gs = np.flatnonzero(nobs == q)
-        o = np.array([np.flatnonzero(~pats[g]) for g in gs], dtype=np.int64).reshape(gs.size, q)
-        m = np.array([np.flatnonzero(pats[g]) for g in gs], dtype=np.int64).reshape(gs.size, p - q)
-        sums = np.empty((gs.size, q))
-        cross = np.empty((gs.size, q, q))
-        for i, g in enumerate(gs):  # one pass over the rows, pattern by pattern
-            rows = z0[bounds[g] : bounds[g + 1]][:, o[i]]
-            sums[i] = rows.sum(axis=0)
-            cross[i] = rows.T @ rows
+        o = np.nonzero(~pats[gs])[1].reshape(gs.size, q)  # observed columns, in order
+        m = np.nonzero(pats[gs])[1].reshape(gs.size, p - q)  # missing columns
+        sums = np.take_along_axis(sums_all[gs], o, axis=1)
+        cross = cross_all[gs[:, None, None], o[:, :, None], o[:, None, :]]
         groups[int(q)] = (o, m, counts[gs].astype(np.float64), sums, cross)
     # The observed parts never change: their sums are added once.
     t1_fixed, t2_fixed = np.zeros(p * 1), np.zeros(p * p)
@@ -510,18 +522,20 @@ def em_normal(z, max_iter=1000, tol=1e-9):
     return mu, cov, it, converged, groups
 
 
-def little_mcar(x, names=None):
+def little_mcar(x, names=None, max_rows=50_000, seed=0):
     """Little's (1988) test that the gaps of the numeric matrix x (rows × columns) are MCAR.
 
+    Rows with no observed value are left out; beyond max_rows such rows, the test runs
+    on a seeded random sample of max_rows of them (numpy Generator seeded with `seed`).
     Returns a dict with statistic, dof, p_value, patterns, applicable, reason, rows,
-    complete_rows, columns, mean, cov (ML by EM), iterations, converged.
+    sampled, complete_rows, columns, mean, cov (ML by EM), iterations, converged.
     """
     x = np.asarray(x, dtype=np.float64)
     x = np.where(np.isfinite(x), x, np.nan)
     names = list(range(x.shape[1])) if names is None else list(names)
     out = {
         "statistic": np.nan, "dof": np.nan, "p_value": np.nan, "patterns": 0, "applicable": False,
-        "reason": "", "rows": 0, "complete_rows": 0, "columns": [], "mean": None, "cov": None,
+        "reason": "", "rows": 0, "sampled": False, "complete_rows": 0, "columns": [], "mean": None, "cov": None,
         "iterations": 0, "converged": False,
     }
     obs = ~np.isnan(x)
@@ -532,7 +546,10 @@ def little_mcar(x, names=None):
     if p < 2:
         out["reason"] = "not applicable: the test needs at least two numeric columns with varying values"
         return out
-    used = obs.any(axis=1)
+    used = np.flatnonzero(obs.any(axis=1))
+    if used.size > max_rows:
+        used = np.sort(np.random.default_rng(seed).choice(used, size=max_rows, replace=False))
+        out["sampled"] = True
     x, obs = x[used], obs[used]
     out["rows"], out["complete_rows"] = int(x.shape[0]), int(obs.all(axis=1).sum())
     if obs.all():
@@ -543,6 +560,10 @@ def little_mcar(x, names=None):
             f"not applicable: {out['complete_rows']} complete rows are too few to anchor the EM "
             f"estimates of {p} means and covariances (needs at least {p + 1})"
         )
+        return out
+    n_pat = np.unique(np.packbits(~obs, axis=1), axis=0).shape[0]
+    if n_pat * p * p > 25_000_000:
+        out["reason"] = f"not applicable: {n_pat:,} distinct patterns are too many for the EM estimates"
         return out
     centre = np.nanmean(x, axis=0)
     scale = np.nanstd(x, axis=0)
@@ -578,10 +599,9 @@ def nullity_correlation(miss, labels):
     cols = [j for j in range(miss.shape[1]) if 0 < c[j] < n]
     if not cols:
         return pd.DataFrame(index=pd.Index([], name="column", dtype=object), columns=pd.Index([], dtype=object), dtype=float)
-    both = np.zeros((len(cols), len(cols)))
-    for start in range(0, n, 1 << 17):  # cross-products in row blocks (bounded memory)
-        block = miss[start : start + (1 << 17)][:, cols].astype(np.float64)
-        both += block.T @ block
+    pats, counts, _ = missing_patterns(miss[:, cols])  # co-missing counts from the distinct patterns
+    on = pats.astype(np.float64)
+    both = (on.T * counts) @ on
     p = c[cols].astype(np.float64) / n
     cov = both / n - np.outer(p, p)
     sd = np.sqrt(p * (1 - p))
