@@ -181,47 +181,55 @@ class ReportWidget(widgets.VBox):  # type: ignore[misc]
                 bodies[name] = self._static_body(name)
         return report_fragment(self.report, compute=False, live=False, bodies=bodies)
 
-    def fallback_html(self) -> str:
-        """The saved static copy, hidden by CSS while this live widget is on the page.
+    def fallback_html(self, *, second: bool = False) -> str:
+        """The saved static copy of the report (every tab computed so far).
 
-        Shown wherever the widget cannot be drawn: a notebook reopened in JupyterLab
-        without saved widget state ("model not found"), nbconvert/nbviewer exports,
-        viewers with no widget support.
+        The display carries it twice (see :meth:`_ipython_display_`): as the ``text/html``
+        of the widget's own bundle (used by nbconvert/nbviewer when no widget state was
+        saved, and by viewers without widget support) and, with ``second=True``, as an
+        output of its own — JupyterLab always picks the widget view of a bundle, even when
+        the model is gone ("model not found" in a reopened notebook), so only a separate
+        output shows there.  The second copy hides itself by CSS whenever the live widget
+        or the first copy is on the page, so a reader never sees the report twice.
         """
         mid = esc(self.model_id)
         try:
             body = self.static_html()
         except Exception as exc:  # the live widget must show even if the fallback fails
             body = f"<pre>{esc(type(exc).__name__)}: {esc(exc)}</pre>"
-        return (
-            f"<div class='nbeda-fallback nbeda-fallback-{mid}'><style>"
-            f"body:has(.nbeda-live-{mid}) .nbeda-fallback-{mid} {{ display: none !important; }}"
-            f"body:has(.nbeda-live-{mid}) .jp-OutputArea-child:has(.nbeda-fallback-{mid}) "
-            "{ display: none !important; }</style>"
+        note = (
             "<div class='nbeda'><div class='nb-hint'>Static copy of the nbeda report (the live widget "
             "needs a running kernel); tabs opened after it was shown are not included.</div></div>"
-            f"{body}</div>"
         )
+        if not second:
+            return f"<div class='nbeda-fallback nbeda-copy-{mid}'>{note}{body}</div>"
+        hide = " ".join(
+            f"body:has({cond}) {target} {{ display: none !important; }}"
+            for cond in (f".nbeda-live-{mid}", f".nbeda-copy-{mid}")
+            for target in (f".nbeda-second-{mid}", f".jp-OutputArea-child:has(.nbeda-second-{mid})")
+        )
+        return f"<div class='nbeda-fallback nbeda-second-{mid}'><style>{hide}</style>{note}{body}</div>"
 
     def _repr_mimebundle_(self, **kwargs: Any) -> dict[str, Any]:
-        """Widget view plus the static copy as ``text/html`` (for tools that ask for one bundle)."""
+        """Widget view plus the static copy as ``text/html``."""
         data: dict[str, Any] = super()._repr_mimebundle_(**kwargs)
         data["text/html"] = self.fallback_html()
         return data
 
     def _ipython_display_(self) -> None:
-        """Two outputs: the live widget, then its static copy (hidden while the widget is live).
+        """Two outputs: the widget bundle (with its static copy) and a second, self-hiding copy.
 
-        JupyterLab always prefers the widget view of a bundle, even when the widget's model is
-        gone, so the copy has to be an output of its own to be seen in a reopened notebook.
+        Live widget: the second copy hides (the widget carries ``nbeda-live-<id>``).
+        Reopened in JupyterLab with no widget state: the widget says "model not found" and
+        the second copy shows.  nbconvert/nbviewer without state: the first copy shows and
+        the second hides.
         """
         from IPython.display import display
 
-        live: dict[str, Any] = super()._repr_mimebundle_()
-        display(live, raw=True)
+        display(self._repr_mimebundle_(), raw=True)
         display(
             {
-                "text/html": self.fallback_html(),
+                "text/html": self.fallback_html(second=True),
                 "text/plain": f"(static copy of the nbeda report: {self._header_text()})",
             },
             raw=True,
