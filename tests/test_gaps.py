@@ -446,3 +446,27 @@ def test_charts_are_aggregated_and_html_escaped(demo_frame):
     df = pd.DataFrame({"<script>alert(1)</script>": [1.0, None, 3.0] * 10, "g": ["<b>", "?", "x"] * 10})
     html = gaps_of(df).to_html()
     assert "<script>" not in html and "&lt;script&gt;" in html
+
+
+def test_fill_code_with_duplicate_labels_and_the_panel():
+    rng = np.random.default_rng(13)
+    x = rng.normal(size=(120, 2))
+    x[rng.random(120) < 0.25, 0] = np.nan
+    df = pd.DataFrame(x, columns=["m", "m"])
+    df["seg"] = np.where(rng.random(120) < 0.5, "a", "b")
+    snap = snapshot(df)
+    g = gaps_of(df)
+    f = g.compare_fills("m", by="seg")
+    assert f.position == 0 and f.predictor == 1
+    assert_same_table(run_code(f.code("frame"), df, frame_name="frame")["fills"], f.table)
+    for strategy in ("median", "regression", "hot_deck", "group_median"):
+        out = run_code(f.code("frame", strategy=strategy), df, frame_name="frame")["frame_filled"]
+        assert list(out.columns) == ["m", "m", "seg"]
+        assert out.iloc[:, 0].mean() == pytest.approx(f.table.loc[strategy, "mean"], rel=1e-12)
+        np.testing.assert_array_equal(out.iloc[:, 1].to_numpy(), df.iloc[:, 1].to_numpy())
+    with pytest.raises(ValueError, match="unknown strategy"):
+        f.code(strategy="zero")
+    assert_unchanged(df, snap)
+    pytest.importorskip("ipywidgets")
+    panel = g.panel()
+    assert panel is not None and "Filling gaps in m" in panel.children[-1].value

@@ -542,18 +542,22 @@ def build_fills(gaps: GapsResult, column: Hashable, by: Hashable | None) -> Fill
             if b is not None:
                 notes.append(f"Segments: {_label(ctx, b)} (first categorical column with 2–20 levels).")
     y = pd.Series(G.as_float(ctx.series(j)))
+    ya = y.to_numpy()
+    corr, finite = {}, {}
     with np.errstate(all="ignore"):
-        corr = {}
         for i in numeric:
             if i == j:
                 continue
-            v = pd.Series(G.as_float(ctx.series(i)))
-            ok = y.notna() & v.notna()
-            if ok.sum() >= 3 and y[ok].nunique() > 1 and v[ok].nunique() > 1:
-                corr[i] = float(np.corrcoef(y[ok], v[ok])[0, 1])
+            va = G.as_float(ctx.series(i))
+            finite[i] = bool(np.isfinite(va).all())
+            ok = np.isfinite(ya) & np.isfinite(va)
+            if ok.sum() >= 3 and np.ptp(ya[ok]) > 0 and np.ptp(va[ok]) > 0:
+                r = float(np.corrcoef(ya[ok], va[ok])[0, 1])
+                if np.isfinite(r):
+                    corr[i] = r
     ranked = sorted(corr, key=lambda i: -abs(corr[i]))
     linked = ranked[:2]
-    complete = [i for i in ranked if np.isfinite(G.as_float(ctx.series(i))).all()]
+    complete = [i for i in ranked if finite[i]]
     predictor = complete[0] if complete else None
     if predictor is None:
         notes.append("Regression filling not shown: no complete numeric column to predict from.")

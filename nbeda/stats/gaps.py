@@ -539,7 +539,9 @@ def little_mcar(x, names=None, max_rows=50_000, seed=0):
         "iterations": 0, "converged": False,
     }
     obs = ~np.isnan(x)
-    keep = [j for j in range(x.shape[1]) if np.unique(x[obs[:, j], j]).size >= 2]
+    with np.errstate(all="ignore"):
+        lo, hi = np.nanmin(np.where(obs, x, np.inf), axis=0), np.nanmax(np.where(obs, x, -np.inf), axis=0)
+    keep = [j for j in range(x.shape[1]) if obs[:, j].any() and lo[j] < hi[j]]
     x, obs = x[:, keep], obs[:, keep]
     out["columns"] = [names[j] for j in keep]
     p = len(keep)
