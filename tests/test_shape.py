@@ -150,6 +150,7 @@ def test_large_n_headline_is_dagostino_and_shapiro_on_disclosed_sample():
     assert row["normality_stat"] == pytest.approx(stats.normaltest(x).statistic, rel=1e-9)
     pick = np.sort(np.random.default_rng(4).choice(x.size, size=5000, replace=False))
     assert row["shapiro_stat"] == pytest.approx(stats.shapiro(x[pick]).statistic, rel=1e-9)
+    assert row["anderson_stat"] == pytest.approx(stats.anderson(x[pick], method="interpolate").statistic, rel=1e-9)
     assert row["sampled"] == 5000
     assert "sample of 5000" in row["note"]
     # a different seed draws a different sample

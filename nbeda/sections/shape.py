@@ -153,7 +153,7 @@ class ShapeResult(SectionResult):
         box = box_summary(x)
         if box:
             b = pd.DataFrame([box])
-            base = alt.Chart(b).properties(width=300, height=60, title="box: Tukey whiskers, mean ◆")
+            base = alt.Chart(b)
             boxes = alt.layer(
                 base.mark_rule(color="#333").encode(x=alt.X("whisker_low:Q", title=name), x2="whisker_high:Q"),
                 base.mark_bar(size=26, color="#c9d6e6", stroke="#333").encode(x="q1:Q", x2="q3:Q"),
@@ -161,7 +161,8 @@ class ShapeResult(SectionResult):
                 base.mark_point(shape="diamond", filled=True, size=70, color="#b5472f").encode(
                     x="mean:Q", tooltip=list(box)
                 ),
-            )
+                title=f"box: Tukey whiskers (1.5 IQR), mean = diamond; {box['outside']} beyond the whiskers",
+            ).properties(width=300, height=60)
         else:
             boxes = None
         q = quantile_points(x)
@@ -334,8 +335,9 @@ def build(ctx: Context, **_: Any) -> ShapeResult:
     notes = [
         "Numeric columns: skew = adjusted Fisher–Pearson G1, kurtosis = excess G2, with small-sample "
         "standard errors; quartile skew is Bowley's. Headline normality test: Shapiro–Wilk for n ≤ 5000, "
-        "else D'Agostino–Pearson K² (Shapiro–Wilk then on a seeded sample of 5000); Anderson–Darling A² "
-        "with its 5% critical value alongside.",
+        "else D'Agostino–Pearson K² on all values; Anderson–Darling A² with its 5% critical value "
+        "alongside. Above 5000 values, Shapiro–Wilk, Anderson–Darling, density peaks and λ fits use a "
+        "seeded random sample of 5000 (disclosed in the note column).",
         "Transforms are suggested only when |skew| ≥ 0.5 (common practice): log or Box–Cox (λ by maximum "
         "likelihood) for strictly positive data, Yeo–Johnson (on values divided by their SD) otherwise.",
         "modes = peaks of a Gaussian kernel density (Silverman's robust bandwidth, 512-point grid, "

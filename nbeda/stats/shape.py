@@ -26,7 +26,8 @@ Rules (each documented here and in the emitted code):
   D'Agostino–Pearson K² on all values (Shapiro–Wilk is then also run, on a seeded
   random sample of 5000, and kept in ``shapiro_stat``/``shapiro_p``).  K² needs
   n ≥ 20 (scipy's kurtosis test).  Anderson–Darling A² with its 5% critical value
-  0.752/(1 + 0.75/n + 2.25/n²) (Stephens 1974, the table scipy uses) for n ≥ 8.
+  0.752/(1 + 0.75/n + 2.25/n²) (Stephens 1974, the table scipy uses) for n ≥ 8,
+  on the same seeded sample of 5000 above that size.
 * Transform: skipped ("none") when |skew| < 0.5 (common practice).  Strictly
   positive data: log and Box–Cox (λ by maximum likelihood, ``scipy.stats.boxcox``)
   are compared and log is preferred unless Box–Cox leaves a skew smaller by more
@@ -50,8 +51,9 @@ Rules (each documented here and in the emitted code):
   ``scipy.stats.gaussian_kde`` with that bandwidth, up to a constant factor).
 * Histogram: Freedman–Diaconis bins (width 2·IQR·n^(−1/3), edges equal to
   ``numpy.histogram_bin_edges(bins="fd")``); Sturges' rule when IQR = 0; when
-  that would give more than 200 bins (long tails), FD-width bins over the
-  0.5th–99.5th percentiles only (≤ 200) and the values beyond are counted apart.
+  that would give more than 200 bins (long tails, stray values such as a -999
+  code), FD-width bins (≤ 200) between Tukey's far-out fences Q1 − 3·IQR and
+  Q3 + 3·IQR only, and the values beyond are counted apart (shown in the title).
 """
 
 from __future__ import annotations
@@ -225,7 +227,7 @@ def shape_of(x, seed=0, sample_max=5000, small_skew=0.5):
         pick = np.sort(np.random.default_rng(seed).choice(n, size=sample_max, replace=False))
         ys = y[pick]
         row["sampled"] = int(sample_max)
-        notes.append(f"Shapiro-Wilk, density peaks and lambda on a seeded random sample of {sample_max}")
+        notes.append(f"Shapiro-Wilk, Anderson-Darling, density peaks and lambda on a seeded random sample of {sample_max}")
     else:
         ys = y
     # Normality tests.
@@ -235,9 +237,10 @@ def shape_of(x, seed=0, sample_max=5000, small_skew=0.5):
     if n >= 20:
         k2 = stats.normaltest(y)
         row["dagostino_stat"], row["dagostino_p"] = float(k2.statistic), float(k2.pvalue)
-    if n >= 8:
-        row["anderson_stat"] = float(stats.anderson(y, method="interpolate").statistic)
-        row["anderson_crit_5"] = float(np.round(0.752 / (1.0 + 0.75 / n + 2.25 / n / n), 3))
+    if ys.size >= 8 and ys.min() < ys.max():
+        m = ys.size
+        row["anderson_stat"] = float(stats.anderson(ys, method="interpolate").statistic)
+        row["anderson_crit_5"] = float(np.round(0.752 / (1.0 + 0.75 / m + 2.25 / m / m), 3))
     if n <= 5000:
         row["normality_test"] = "Shapiro-Wilk"
         row["normality_stat"], row["normality_p"] = row["shapiro_stat"], row["shapiro_p"]
@@ -329,7 +332,8 @@ def fd_histogram(x, max_bins=200):
     rule = "fd" if width > 0 else "sturges"
     below = above = 0
     if width > 0 and np.ceil((hi - lo) / width) > max_bins:
-        lo, hi = np.quantile(y, [0.005, 0.995])
+        # Long tails or stray values: show Tukey's far-out fences (Q1 - 3 IQR, Q3 + 3 IQR) only.
+        lo, hi = max(lo, q1 - 3.0 * (q3 - q1)), min(hi, q3 + 3.0 * (q3 - q1))
         nbins = int(min(max(np.ceil((hi - lo) / width), 1), max_bins))
         edges = np.linspace(lo, hi, nbins + 1) if hi > lo else np.array([lo - 0.5, hi + 0.5])
         below, above = int((y < edges[0]).sum()), int((y > edges[-1]).sum())
@@ -558,8 +562,8 @@ def date_counts(ctx: Context, i: int, max_months: int = 120) -> tuple[pd.DataFra
 _RULES = [
     "Rules: only finite values count (missing and +/-inf left out); values are scaled by a power of two",
     "so 1e300-sized numbers cannot overflow; skew = adjusted Fisher-Pearson G1, kurtosis = excess G2;",
-    "headline test Shapiro-Wilk for n <= 5000, else D'Agostino-Pearson K2 (Shapiro-Wilk then on a seeded",
-    "sample of 5000); transforms skipped when |skew| < 0.5 (common practice); density peaks from a",
+    "headline test Shapiro-Wilk for n <= 5000, else D'Agostino-Pearson K2 (Shapiro-Wilk, Anderson-Darling,",
+    "density peaks and lambda fits then on a seeded sample of 5000); transforms skipped when |skew| < 0.5 (common practice); density peaks from a",
     "Gaussian KDE with Silverman's robust bandwidth on 512 points, peaks with prominence >= 10% of the",
     "highest (n >= 20).",
 ]
