@@ -262,7 +262,10 @@ class GapsResult(SectionResult):
     # -------------------------------------------------------------------- code
     def code(self, frame_name: str = "df") -> str:
         ctx = self.ctx
-        roles = "[" + ", ".join(lit(r) for r in ctx.roles) + "]"
+        if ctx.n_cols <= 200:  # one role per line, with the column it belongs to
+            roles = "[\n" + "".join(f"    {lit(r)},  # {lit(label)}\n" for r, label in zip(ctx.roles, ctx.labels, strict=True)) + "]"
+        else:
+            roles = "[" + ", ".join(lit(r) for r in ctx.roles) + "]"
         body = f"""\
 # Roles by column position, as inferred in the Roles tab (its code rebuilds them).
 roles = {roles}
@@ -635,6 +638,8 @@ def build(ctx: Context, **_: Any) -> GapsResult:
             flags.append(str(t_hint[j]) + ".")
     if n_disg and total == 0 and n and k:
         notes.append(f"…but {n_disg:,} disguised missing value(s) stand in for gaps (see the flags).")
+    if ctx.options.sample and ctx.options.sample < n:
+        notes.append("Gap counts and MAR tests use every row (the sample option does not apply here).")
     notes.append(mcar.summary())
     if numeric and mcar.applicable:
         notes.append(
