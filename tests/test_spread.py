@@ -228,12 +228,20 @@ def test_trimmed_mean_against_scipy(n):
         assert t.loc[col, "trimmed_mean"] == pytest.approx(stats.trim_mean(frame[col].to_numpy(), 0.1), rel=1e-12)
 
 
-def test_mad_against_scipy():
-    """MAD against ``scipy.stats.median_abs_deviation`` (raw, and scale='normal' for mad_scaled)."""
-    frame = _random_columns(5, 137, 4)
+@pytest.mark.parametrize("n", [1, 2, 3, 4, 5, 8, 13, 137, 1000])
+@pytest.mark.parametrize("kind", ["continuous", "ties"])
+def test_mad_against_scipy(n, kind):
+    """MAD against ``scipy.stats.median_abs_deviation`` (raw, and scale='normal' for mad_scaled),
+    on continuous values and on heavily tied integers."""
+    frame = _random_columns(5 + n, n, 4)
+    if kind == "ties":
+        frame = frame.round(0)
     t = spread_table(frame)
     for col in frame.columns:
         v = frame[col].dropna().to_numpy()
+        if v.size == 0:
+            assert np.isnan(t.loc[col, "mad"])
+            continue
         assert t.loc[col, "mad"] == pytest.approx(stats.median_abs_deviation(v), rel=1e-12)
         assert t.loc[col, "mad_scaled"] == pytest.approx(
             stats.median_abs_deviation(v, scale="normal"), rel=1e-12

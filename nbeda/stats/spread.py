@@ -147,22 +147,45 @@ def spread_table(x, confidence=0.95):
                 return np.full(k, np.nan)
             return np.where(ok, s[np.where(ok, pos, 0).astype(np.int64), cols], np.nan)
 
-        def quantile(p, sorted_values):
+        def lerp(a, b, t):
+            """a + (b - a)·t, written as numpy does for its linear quantiles."""
+            out = np.where(t >= 0.5, b - (b - a) * (1 - t), a + (b - a) * t)
+            return np.where(a == b, a, out)
+
+        def quantile(p):
             """Linear-interpolation quantile (pandas/numpy default): position (n - 1)·p."""
             if n_rows == 0:
                 return np.full(k, np.nan)
             h = np.maximum((n - 1) * p, 0)
             lo, hi = np.floor(h).astype(np.int64), np.ceil(h).astype(np.int64)
-            a, b, t = sorted_values[lo, cols], sorted_values[hi, cols], h - lo
-            out = np.where(t >= 0.5, b - (b - a) * (1 - t), a + (b - a) * t)
-            return np.where(n > 0, np.where(a == b, a, out), np.nan)
+            return np.where(n > 0, lerp(s[lo, cols], s[hi, cols], h - lo), np.nan)
+
+        def nearest_deviation(kth):
+            """The kth smallest |x - median| (0-based) of each column, without a second sort.
+
+            The kth + 1 values nearest the median form a window s[a], ..., s[a + kth] of the
+            sorted column, and that deviation is min over a of max(median - s[a], s[a + kth] - median):
+            the first term falls and the second rises with a, so a binary search finds the best a.
+            """
+            lo = np.zeros(k, dtype=np.int64)
+            hi = np.maximum(n - 1 - kth, 0)
+            while np.any(lo < hi):
+                active = lo < hi
+                mid = (lo + hi) // 2
+                left_farther = (median - s[mid, cols]) > (s[mid + kth, cols] - median)
+                lo = np.where(active & left_farther, mid + 1, lo)
+                hi = np.where(active & ~left_farther, mid, hi)
+            before = np.maximum(lo - 1, 0)
+            at_lo = np.maximum(median - s[lo, cols], s[lo + kth, cols] - median)
+            at_before = np.maximum(median - s[before, cols], s[before + kth, cols] - median)
+            return np.minimum(at_lo, at_before)
 
         # Order statistics: min, quartiles, median, max.
         minimum = order_stat(np.zeros(k))
         maximum = order_stat(n - 1)
-        median = quantile(0.5, s)
-        q1 = quantile(0.25, s)
-        q3 = quantile(0.75, s)
+        median = quantile(0.5)
+        q1 = quantile(0.25)
+        q3 = quantile(0.75)
         iqr = q3 - q1
 
         # Distribution-free median interval [x_(l), x_(n+1-l)] (1-based), l from Binomial(n, 1/2):
@@ -225,7 +248,13 @@ def spread_table(x, confidence=0.95):
             mode = np.full(k, np.nan)
 
         # Median absolute deviation from the median (raw), and scaled to match the std for normal data.
-        mad = quantile(0.5, np.sort(np.abs(s - median), axis=0))
+        # (the median of the n deviations, interpolated like the median itself).
+        if n_rows:
+            h = np.maximum((n - 1) * 0.5, 0)
+            kth_lo, kth_hi = np.floor(h).astype(np.int64), np.ceil(h).astype(np.int64)
+            mad = np.where(n > 0, lerp(nearest_deviation(kth_lo), nearest_deviation(kth_hi), h - kth_lo), np.nan)
+        else:
+            mad = np.full(k, np.nan)
         mad_scaled = mad / stats.norm.ppf(0.75)
 
         # Quartile (Bowley) skewness: (q3 + q1 - 2·median) / iqr, in [-1, 1]; blank when iqr is 0.
