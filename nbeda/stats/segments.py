@@ -136,6 +136,8 @@ def segment_labels(s, mode, max_levels=20, n_bins=5):
         try:
             natural = present.drop_duplicates().sort_values().astype(str)
             levels = list(dict.fromkeys(natural.to_numpy(dtype=object)))
+            seen = set(levels)
+            levels += [v for v in by_count.index if v not in seen]  # e.g. 1 and 1.0 in one object column
         except TypeError:  # values that cannot be compared: keep the frequency order
             pass
     other = []
@@ -262,20 +264,21 @@ def tests_table(y, labels, order, named, balance_test=True):
     Returns (tests, anova, groups): the tests table, the ANOVA dictionary (or None)
     and the segments that entered the metric tests.
     """
-    rows, anova = {}, None
-    y = np.asarray(y, dtype="float64") if y is not None else None
+    rows, anova, groups = {}, None, []
     labels = np.asarray(labels, dtype=object)
     if y is not None:
+        y = np.asarray(y, dtype="float64")
         ok = np.isfinite(y)
-        codes_all = pd.Categorical(labels[ok], categories=list(order)).codes
-        sizes = np.bincount(codes_all, minlength=len(order))
-        groups = [g for g, m in zip(order, sizes) if m >= 2]
-    else:
-        groups = []
+        codes_all = pd.Categorical(labels, categories=list(order)).codes.astype("int64")
+        sizes = np.bincount(codes_all[ok], minlength=len(order))
+        kept = np.flatnonzero(sizes >= 2)
+        groups = [order[i] for i in kept]
     if len(groups) >= 2:
-        keep = np.isin(labels, np.asarray(groups, dtype=object)) & ok
-        codes = pd.Categorical(labels[keep], categories=groups).codes.astype("int64")
-        values = y[keep]
+        remap = np.full(len(order), -1, dtype="int64")
+        remap[kept] = np.arange(len(kept))
+        codes = remap[codes_all]
+        keep = ok & (codes >= 0)
+        codes, values = codes[keep], y[keep]
         k = len(groups)
         anova = oneway_anova(values, codes, k)
         rows["anova"] = (anova["f"], anova["df_between"], anova["p_value"],
@@ -284,7 +287,7 @@ def tests_table(y, labels, order, named, balance_test=True):
         anova["welch_df_within"] = welch["df_within"]
         rows["welch_anova"] = (welch["f"], welch["df_between"], welch["p_value"],
                                anova["omega_squared"], "omega_squared")
-        split = np.split(values[np.argsort(codes, kind="stable")], np.cumsum(np.bincount(codes))[:-1])
+        split = np.split(values[np.argsort(codes, kind="stable")], np.cumsum(np.bincount(codes, minlength=len(groups)))[:-1])
         if np.ptp(values) > 0:
             h, p = stats.kruskal(*split)
             rows["kruskal"] = (h, float(k - 1), p, h / (values.size - 1), "epsilon_squared_ranks")
@@ -309,8 +312,11 @@ def tukey_pairs(y, labels, groups, confidence=0.95):
     import warnings
 
     y = np.asarray(y, dtype="float64")
-    labels = np.asarray(labels, dtype=object)
-    samples = [y[(labels == g) & np.isfinite(y)] for g in groups]
+    codes = pd.Index(list(groups), dtype=object).get_indexer(np.asarray(labels, dtype=object))
+    keep = (codes >= 0) & np.isfinite(y)
+    codes, values = codes[keep], y[keep]
+    split = np.split(values[np.argsort(codes, kind="stable")], np.cumsum(np.bincount(codes, minlength=len(groups)))[:-1])
+    samples = [np.asarray(v) for v in split]
     with warnings.catch_warnings():  # the studentized-range integral may warn on large df
         warnings.simplefilter("ignore")
         res = stats.tukey_hsd(*samples)
