@@ -125,7 +125,7 @@ class LinksResult(SectionResult):
                 cells.append({"row": a, "col": b, "value": float(v),
                               "clear": bool(np.isfinite(p) and p < 0.05)})
         data = pd.DataFrame(cells, columns=["row", "col", "value", "clear"])
-        title = f"{measure} between columns"
+        title = f"{measure} between columns (faded: p_adjusted ≥ 0.05)"
         if limited:
             title += f" (the {HEATMAP_COLUMNS} columns with the strongest links of {k})"
         heat = (
@@ -351,7 +351,12 @@ class TrendResult(SectionResult):
                 continue
             else:
                 seg_name = str(name)
-            for xv in (lo, hi):
+                inside = xs[seg == seg_name]
+                if inside.size == 0:
+                    continue
+                lo_s, hi_s = float(inside.min()), float(inside.max())
+            span = (lo, hi) if seg_name == "all rows" else (lo_s, hi_s)
+            for xv in span:
                 lines.append({"x": xv, "y": row["intercept"] + row["slope"] * xv, "line": seg_name,
                               "overall": seg_name == "all rows"})
         if lines:

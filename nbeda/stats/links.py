@@ -369,11 +369,12 @@ def assemble_links(labels, roles, kinds, num, codes, pearson, spearman, method, 
         low[sel], high[sel] = fisher_ci(est[sel], ns[sel], kind, confidence)
     share = np.where(np.isin(measure, ["pearson", "eta"]), est**2, np.nan)
     # Pearson and Spearman disagreeing by 0.2 or more: say so on both rows
+    notes = table["note"].to_numpy(dtype=object).copy()
     for i, j in both_rows:
         if abs(est[i] - est[j]) >= 0.2:
-            for t in (i, j):
-                table.loc[t, "note"] = ("Pearson and Spearman differ by 0.2 or more: "
-                                        "a non-linear or outlier-driven link")
+            notes[[i, j]] = ("Pearson and Spearman differ by 0.2 or more: "
+                             "a non-linear or outlier-driven link")
+    table["note"] = notes
     table["ci_low"], table["ci_high"] = low, high
     table["p_value"] = p
     table["p_adjusted"] = bh_adjust(p)
@@ -620,12 +621,14 @@ def select_columns(ctx: Context) -> tuple[list[int], list[str], list[str]]:
     numeric = set(ctx.numeric_positions())
     chosen, kinds, skipped = [], [], []
     table = ctx.roles_table
+    dtypes = list(ctx.frame.dtypes)
+    uniques = table["unique"].to_numpy()
     for i, role in enumerate(roles):
-        s = ctx.series(i)
+        dtype = dtypes[i]
         if role == "constant":
             kind = "numeric" if ctx.is_numeric_coded(i) else "nominal"
         elif role == "ordinal":
-            if i in numeric or (isinstance(s.dtype, pd.CategoricalDtype) and s.dtype.ordered):
+            if i in numeric or (isinstance(dtype, pd.CategoricalDtype) and dtype.ordered):
                 kind = "ordinal"
             else:
                 kind = "nominal"
@@ -636,10 +639,10 @@ def select_columns(ctx: Context) -> tuple[list[int], list[str], list[str]]:
         else:
             skipped.append(i)
             continue
-        if kind == "nominal" and int(table["unique"].iloc[i]) > MAX_LEVELS:
+        if kind == "nominal" and int(uniques[i]) > MAX_LEVELS:
             notes.append(f"{ctx.labels[i]!r} has more than {MAX_LEVELS} levels: not paired")
             continue
-        if kind == "nominal" and not _hashable(s):
+        if kind == "nominal" and not _hashable(ctx.series(i)):
             continue
         chosen.append(i)
         kinds.append(kind)
@@ -708,7 +711,8 @@ def compute_links(
         spear = fast_spearman(num[:, corr_cols])
         spearman[np.ix_(corr_cols, corr_cols)] = spear
     labels = [ctx.labels[i] for i in positions]
-    roles = [ctx.roles[i] for i in positions]
+    all_roles = ctx.roles
+    roles = [all_roles[i] for i in positions]
     table = assemble_links(labels, roles, kinds, num, codes, pearson, spearman, method,
                            ctx.options.confidence, mutual_info, KENDALL_MAX_ROWS, ctx.options.seed)
     info = {"positions": positions, "kinds": kinds, "notes": notes, "sample_rows": rows,
@@ -729,8 +733,9 @@ def links_code(ctx: Context, info: dict[str, Any], frame_name: str = "df") -> st
         lines.append(f"frame = {frame_name}")
     lines.append("# Columns paired: (position, label, role, kind).  Kinds: numeric, ordinal, nominal.")
     lines.append("columns = [")
+    all_roles = ctx.roles
     for i, kind in zip(positions, kinds, strict=True):
-        lines.append(f"    ({i}, {lit(ctx.labels[i])}, {lit(ctx.roles[i])}, {lit(kind)}),")
+        lines.append(f"    ({i}, {lit(ctx.labels[i])}, {lit(all_roles[i])}, {lit(kind)}),")
     lines.append("]")
     body = "\n".join(lines) + "\n"
     body += f"""\
