@@ -139,6 +139,17 @@ def test_normality_tests_match_scipy_on_iris(iris):
         assert t.loc[col, "anderson_crit_5"] == pytest.approx(legacy.critical_values[2], abs=1e-12)
 
 
+def test_dagostino_k2_matches_scipy_normaltest():
+    """Our K2 (from G1, G2 by D'Agostino, Belanger & D'Agostino 1990) vs scipy.stats.normaltest."""
+    rng = np.random.default_rng(23)
+    for x in (rng.normal(size=20), rng.exponential(size=57), rng.standard_t(3, size=1000), rng.uniform(size=300)):
+        row = shape_of(x)
+        ref = stats.normaltest(x)
+        assert row["dagostino_stat"] == pytest.approx(ref.statistic, rel=1e-9)
+        assert row["dagostino_p"] == pytest.approx(ref.pvalue, rel=1e-8, abs=1e-300)
+    assert np.isnan(shape_of(rng.normal(size=19))["dagostino_stat"])  # K2 needs n >= 20
+
+
 def test_large_n_headline_is_dagostino_and_shapiro_on_disclosed_sample():
     """Above 5000 values: K2 on all values (scipy.stats.normaltest); Shapiro-Wilk on the seeded
     sample drawn as disclosed (numpy default_rng(seed).choice without replacement, sorted)."""
