@@ -108,8 +108,8 @@ def _copy_js() -> str:
 def _insert_js() -> str:
     # Inserting a cell needs the notebook application.  The classic Notebook (and
     # nbclassic) expose it as window.Jupyter; JupyterLab / Notebook 7 only when started
-    # with exposeAppInBrowser (window.jupyterapp).  Anywhere else: say so and point to
-    # the magic, which always works.
+    # with exposeAppInBrowser (window.jupyterapp).  Anywhere else: copy the code instead,
+    # say how to paste it into a new cell, and point to the magic, which always works.
     return (
         "(function(b){var p=b.closest('.nb-codepanel');var s=p.querySelector('textarea.nb-copysrc').value;"
         "var ok=false;"
@@ -121,8 +121,10 @@ def _insert_js() -> str:
         "var c=a.shell.currentWidget.content.activeCell;c.model.sharedModel.setSource(s);});ok=true;}}"
         "catch(e){ok=false;}}"
         "if(ok){b.textContent='Inserted';setTimeout(function(){b.textContent='Insert below';},1800);}"
-        "else{b.textContent='Insert below: not available here';b.disabled=true;"
-        "var h=p.querySelector('.nb-hint');if(h){h.classList.add('nb-hint-strong');}}"
+        "else{var k=p.querySelector('button.nb-copy');if(k){k.click();}"
+        "b.textContent='Copied instead: add a cell below (Esc, B) and paste';"
+        "var h=p.querySelector('.nb-hint');if(h){h.classList.add('nb-hint-strong');}"
+        "setTimeout(function(){b.textContent='Insert below';},6000);}"
         "})(this)"
     )
 
