@@ -306,6 +306,25 @@ def test_mcar_not_applicable_cases_say_why():
     none_complete = gaps_of(pd.DataFrame({"a": a, "b": b, "c": rng.normal(size=40)}))
     assert "0 complete rows are too few" in none_complete.mcar.reason
     assert np.isnan(none_complete.mcar.p_value)
+    c = rng.normal(size=200)
+    c[rng.random(200) < 0.2] = np.nan
+    a = rng.normal(size=200)
+    collinear = gaps_of(pd.DataFrame({"a": a, "twice_a": 2 * a + 1, "c": c}))
+    assert collinear.mcar.reason == "not applicable: the EM covariance is singular (some numeric columns are collinear)"
+
+
+def test_significant_but_negligible_association_is_called_weak():
+    """Cohen (1988): w = 0.1 is a "small" effect (common practice); below it the hint says "weak"."""
+    rng = np.random.default_rng(21)
+    n = 40000
+    seg = np.where(rng.random(n) < 0.5, "a", "b")
+    y = rng.normal(size=n)
+    y[rng.random(n) < np.where(seg == "a", 0.10, 0.125)] = np.nan
+    g = gaps_of(pd.DataFrame({"y": y, "seg": seg}))
+    row = _test_row(g, "y", "seg")
+    assert row["p_adj"] < 0.05 and row["effect"] < 0.1
+    assert g.table.loc["y", "mar_hint"].startswith("weak association: gaps in y are somewhat more common when seg = 'b' (12.6% vs 10.3%")
+    assert not any(f.startswith("weak") or "seg = 'b'" in f for f in g.flags)
 
 
 # --------------------------------------------------------------------------- bad input

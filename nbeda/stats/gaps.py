@@ -570,9 +570,13 @@ def little_mcar(x, names=None, max_rows=50_000, seed=0):
     centre = np.nanmean(x, axis=0)
     scale = np.nanstd(x, axis=0)
     z = (x - centre) / scale
-    mu, cov, it, converged, groups = em_normal(z)
-    out["iterations"], out["converged"] = int(it), bool(converged)
-    eig = np.linalg.eigvalsh(cov)
+    try:
+        mu, cov, it, converged, groups = em_normal(z)
+        eig = np.linalg.eigvalsh(cov)
+    except np.linalg.LinAlgError:
+        eig = np.zeros(1)
+    else:
+        out["iterations"], out["converged"] = int(it), bool(converged)
     if not eig.min() > 1e-10 * max(eig.max(), 1e-300):
         out["reason"] = "not applicable: the EM covariance is singular (some numeric columns are collinear)"
         return out
