@@ -221,8 +221,9 @@ def test_anova_welch_kruskal_and_effect_sizes_match_references(crop_yield, clean
     assert t.loc["welch_anova", "effect_measure"] == "omega_squared"
 
 
-def test_welch_on_unequal_variances_matches_statsmodels():
-    """Welch's ANOVA on a seeded design with very unequal variances and sizes (statsmodels reference)."""
+def test_welch_on_unequal_variances_matches_statsmodels_and_scipy():
+    """Welch's ANOVA on a seeded design with very unequal variances and sizes: statsmodels
+    anova_oneway(use_var="unequal") and scipy f_oneway(equal_var=False) as references."""
     rng = np.random.default_rng(11)
     samples = [rng.normal(0, 1, 12), rng.normal(0.5, 5, 40), rng.normal(1.0, 0.3, 7), rng.normal(0.2, 2, 25)]
     from statsmodels.stats.oneway import anova_oneway
@@ -234,6 +235,9 @@ def test_welch_on_unequal_variances_matches_statsmodels():
     assert w["f"] == pytest.approx(ref.statistic, rel=1e-10)
     assert w["df_within"] == pytest.approx(ref.df[1], rel=1e-10)
     assert w["p_value"] == pytest.approx(ref.pvalue, rel=1e-8)
+    sp = stats.f_oneway(*samples, equal_var=False)  # scipy's Welch ANOVA (scipy >= 1.15)
+    assert w["f"] == pytest.approx(sp.statistic, rel=1e-10)
+    assert w["p_value"] == pytest.approx(sp.pvalue, rel=1e-8)
 
 
 def test_balance_chi2_matches_scipy(demo_frame):
@@ -506,3 +510,19 @@ def test_charts_are_small_aggregates_with_ci_bars_stacked_shares_and_heatmap(dem
     assert len(cells) == r.crosstab.size
     assert sum(c["beyond_2"] for c in cells) == int((r.residuals.abs() > 2).to_numpy().sum()) > 0
     assert "arc" not in str(means) + str(shares) + str(heat)
+
+
+def test_welch_keeps_its_level_where_the_classic_f_does_not():
+    """Seeded calibration (known parameters): equal means, the small group with the large SD.
+    Welch's ANOVA rejects at about the nominal 5%; the classic F test rejects far more often."""
+    rng = np.random.default_rng(2024)
+    sizes, sds = np.array([6, 12, 24]), np.array([4.0, 2.0, 1.0])
+    codes = np.repeat(np.arange(3), sizes)
+    reps = 2000
+    welch_hits = classic_hits = 0
+    for _ in range(reps):
+        y = rng.normal(0.0, np.repeat(sds, sizes))
+        welch_hits += welch_anova(y, codes, 3)["p_value"] < 0.05
+        classic_hits += oneway_anova(y, codes, 3)["p_value"] < 0.05
+    assert abs(welch_hits / reps - 0.05) < 0.02
+    assert classic_hits / reps > 0.12
