@@ -381,7 +381,10 @@ class TrendResult(SectionResult):
 
         def col(i: int) -> str:
             e = f"{frame_name}.iloc[:, {i}]"
-            if pd.api.types.is_timedelta64_dtype(ctx.series(i).dtype):
+            dtype = ctx.series(i).dtype
+            if isinstance(dtype, pd.CategoricalDtype) and dtype.ordered:
+                return f"{e}.cat.codes.astype('float64').where({e}.cat.codes >= 0).to_numpy()"
+            if pd.api.types.is_timedelta64_dtype(dtype):
                 return f"{e}.dt.total_seconds().to_numpy(dtype='float64', na_value=np.nan)"
             return f"{e}.astype('float64').to_numpy(dtype='float64', na_value=np.nan)"
 

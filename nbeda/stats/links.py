@@ -846,7 +846,10 @@ def trend_table(x, y, groups, x_name, y_name):
     ok = np.isfinite(x) & np.isfinite(y)
     names, rows = ["(all rows)"], [ols_fit(x[ok], y[ok], x_name, y_name)]
     if groups is not None:
-        codes, levels = pd.factorize(pd.Series(groups[ok], dtype=object), sort=True)
+        try:
+            codes, levels = pd.factorize(pd.Series(groups[ok], dtype=object), sort=True)
+        except TypeError:  # labels of mixed types do not sort: keep first-seen order
+            codes, levels = pd.factorize(pd.Series(groups[ok], dtype=object), sort=False)
         for j, level in enumerate(levels):
             m = codes == j
             names.append(level)
