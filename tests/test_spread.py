@@ -426,3 +426,12 @@ def test_role_overrides_move_columns_between_tables(demo_frame):
     assert moved.levels.loc["pest_score", "top_count"] == counts.max()
     # numbers of the columns that stay are unaffected by the move
     assert_same_table(moved.table.loc[["yield_kg"]], base.table.loc[["yield_kg"]], rtol=0)
+
+
+@pytest.mark.parametrize("frame_name", ["x", "cols", "data", "values"])
+def test_code_survives_any_frame_name(demo_frame, frame_name):
+    """The emitted code must not overwrite the frame it reads, whatever the frame is called."""
+    result = Report(demo_frame).section("spread")
+    ns = run_code(result.code(frame_name), demo_frame, frame_name=frame_name)
+    assert_same_table(ns["spread"], result.table)
+    assert_same_table(ns["spread_levels"], result.levels)

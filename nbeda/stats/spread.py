@@ -401,13 +401,13 @@ def spread_code(ctx: Context, frame_name: str = "df") -> str:
     numeric_block = (
         "# Numeric columns (continuous, discrete, numeric-coded ordinal) as float64;\n"
         "# missing values become NaN and durations are counted in seconds.\n"
-        + float_frame_code(ctx, num, frame_name, var="x")
-        + f"spread = spread_table(x, confidence={conf!r})\n"
+        + float_frame_code(ctx, num, frame_name, var="spread_values")
+        + f"spread = spread_table(spread_values, confidence={conf!r})\n"
     )
     levels_block = (
         "# Nominal, boolean and non-numeric ordinal columns: level counts and entropy (bits).\n"
-        + _columns_code(ctx, lev, frame_name, var="cols")
-        + "spread_levels = levels_table(cols)\n"
+        + _columns_code(ctx, lev, frame_name, var="spread_columns")
+        + "spread_levels = levels_table(spread_columns)\n"
     )
     return join_blocks(
         header(
