@@ -379,6 +379,14 @@ class SegmentsResult(SectionResult):
                     None if a == -1 or a == b else a,
                     choice_notes=[],
                 )
+
+                def arg(pos: int) -> str:
+                    return "False" if pos == -1 or pos is None else repr(ctx.labels[pos])
+
+                res.notes.insert(0, (
+                    "The code panel shows the tab's defaults; the code of this selection is "
+                    f"df.eda.segments(by={arg(b)}, against={arg(a if a != b else -1)}, metric={arg(m)}).code()"
+                ))
                 out.value = self._panel_html(res)
             except ValueError as exc:
                 out.value = f"<style>{CSS}</style><div class='nbeda nb-flag'>{esc(exc)}</div>"

@@ -287,7 +287,8 @@ def tests_table(y, labels, order, named, balance_test=True):
         anova["welch_df_within"] = welch["df_within"]
         rows["welch_anova"] = (welch["f"], welch["df_between"], welch["p_value"],
                                anova["omega_squared"], "omega_squared")
-        split = np.split(values[np.argsort(codes, kind="stable")], np.cumsum(np.bincount(codes, minlength=len(groups)))[:-1])
+        bounds = np.cumsum(np.bincount(codes, minlength=k))[:-1]
+        split = np.split(values[np.argsort(codes, kind="stable")], bounds)
         if np.ptp(values) > 0:
             h, p = stats.kruskal(*split)
             rows["kruskal"] = (h, float(k - 1), p, h / (values.size - 1), "epsilon_squared_ranks")
@@ -315,7 +316,8 @@ def tukey_pairs(y, labels, groups, confidence=0.95):
     codes = pd.Index(list(groups), dtype=object).get_indexer(np.asarray(labels, dtype=object))
     keep = (codes >= 0) & np.isfinite(y)
     codes, values = codes[keep], y[keep]
-    split = np.split(values[np.argsort(codes, kind="stable")], np.cumsum(np.bincount(codes, minlength=len(groups)))[:-1])
+    bounds = np.cumsum(np.bincount(codes, minlength=len(groups)))[:-1]
+    split = np.split(values[np.argsort(codes, kind="stable")], bounds)
     samples = [np.asarray(v) for v in split]
     with warnings.catch_warnings():  # the studentized-range integral may warn on large df
         warnings.simplefilter("ignore")
