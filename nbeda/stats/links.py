@@ -475,7 +475,7 @@ def _order_present(x: np.ndarray) -> np.ndarray:
 
 def _low_mask(p: np.ndarray) -> np.ndarray:
     """Bit masks with the ``p % 32`` lowest bits set (uint32)."""
-    return (np.left_shift(np.uint64(1), (p & 31).astype(np.uint64)) - np.uint64(1)).astype(np.uint32)
+    return np.left_shift(np.uint32(1), (p & 31).astype(np.uint32)) - np.uint32(1)
 
 
 class _Ranked:
@@ -488,7 +488,7 @@ class _Ranked:
     needs no sort and touches only cache-sized tables.
     """
 
-    __slots__ = ("n", "nrows", "pos", "rank", "blk_s", "low_s", "blk_e", "low_e", "starts", "lens")
+    __slots__ = ("n", "nrows", "rank", "blk_s", "low_s", "blk_e", "low_e", "starts", "lens")
 
     def __init__(self, x: np.ndarray) -> None:
         nrows = x.size
@@ -496,40 +496,47 @@ class _Ranked:
         na = order.size
         self.n, self.nrows = na, nrows
         sv = x[order]
-        pos = np.full(nrows, -1, dtype=np.int64)
-        pos[order] = np.arange(na)
-        self.pos = pos
         flags = np.empty(na, dtype=bool)
         if na:
             flags[0] = True
             np.not_equal(sv[1:], sv[:-1], out=flags[1:])
         starts = np.flatnonzero(flags)
-        rank = np.zeros(nrows)
+        srow = np.full(nrows, -1, dtype=np.int32)  # start of the row's tie group (its position without ties)
         if starts.size == na:  # no ties
-            gs, ge = np.arange(na), None
-            rank[order] = np.arange(1, na + 1, dtype="float64")
+            srow[order] = np.arange(na, dtype=np.int32)
+            self.rank = np.where(srow >= 0, srow + 1.0, 0.0)
             self.starts = self.lens = None
+            self.blk_e = self.low_e = None
         else:
             lens = np.diff(np.append(starts, na))
-            gs = np.repeat(starts, lens)
-            ge = gs + np.repeat(lens, lens)
-            rank[order] = 0.5 * (gs + ge) + 0.5
+            srow[order] = np.repeat(starts, lens)
+            erow = np.full(nrows, -1, dtype=np.int32)
+            erow[order] = np.repeat(starts + lens, lens)
+            self.rank = np.where(srow >= 0, 0.5 * (srow + erow) + 0.5, 0.0)
             self.starts, self.lens = starts, lens
-        self.rank = rank
-        self.blk_s, self.low_s = self._codes(order, gs)
-        self.blk_e, self.low_e = (None, None) if ge is None else self._codes(order, ge)
+            self.blk_e, self.low_e = self._codes(erow)
+        self.blk_s, self.low_s = self._codes(srow)
 
-    def _codes(self, order: np.ndarray, p: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        blk = np.zeros(self.nrows, dtype=np.int32)  # missing rows read block 0 with an empty mask
-        low = np.zeros(self.nrows, dtype=np.uint32)
-        blk[order] = p >> 5
-        low[order] = _low_mask(p)
+    @staticmethod
+    def _codes(prow: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Block number and low-bit mask of each row's sorted position (missing: block 0, no bits)."""
+        ok = prow >= 0
+        blk = np.where(ok, prow >> 5, 0).astype(np.int32)
+        low = np.where(ok, _low_mask(np.where(ok, prow, 0)), np.uint32(0))
         return blk, low
 
     def tables(self, drop_rows: np.ndarray) -> tuple[np.ndarray, np.ndarray, int]:
-        """Prefix-count and bit-mask tables of the dropped rows' sorted positions."""
-        dp = self.pos[drop_rows]
-        dp = dp[dp >= 0]
+        """Prefix-count and bit-mask tables of the dropped rows' sorted positions.
+
+        Only tie-group boundaries are ever looked up, so a dropped row inside a tie group
+        may take any free place in it.
+        """
+        keep = self.rank[drop_rows] > 0
+        rows = drop_rows[keep]
+        dp = np.sort(self.blk_s[rows].astype(np.int64) * 32 + np.bitwise_count(self.low_s[rows]))
+        if self.starts is not None and dp.size:
+            # rows dropped from one tie group get distinct places inside it (start, start+1, …)
+            dp = dp + (np.arange(dp.size) - np.searchsorted(dp, dp, side="left"))
         nb = (self.n >> 5) + 2
         blk = dp >> 5
         fblk = np.zeros(nb, dtype="float64")
