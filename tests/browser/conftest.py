@@ -13,6 +13,7 @@ Screenshots land in ``tests/artifacts/`` (git-ignored).
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import secrets
@@ -176,21 +177,34 @@ def _write_lab_settings(settings_dir: Path) -> None:
         path.write_text(json.dumps(value), encoding="utf-8")
 
 
+def _write_page_config(config_dir: Path) -> None:
+    """Lab page config: the debugger front end is off.
+
+    The tests never debug, and the debugger's start-up probe logs a console error
+    ("Could not restore the debugger state") whenever the kernel is slow to start;
+    switching it off keeps the no-console-error check meaningful instead of
+    allow-listing that message.
+    """
+    path = config_dir / "labconfig" / "page_config.json"
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(json.dumps({"disabledExtensions": {"@jupyterlab/debugger-extension": True}}), encoding="utf-8")
+
+
 @pytest.fixture(scope="session")
 def artifacts() -> Path:
     ARTIFACTS.mkdir(parents=True, exist_ok=True)
     return ARTIFACTS
 
 
-@pytest.fixture(scope="session")
-def lab_server(tmp_path_factory: pytest.TempPathFactory, artifacts: Path) -> Iterator[LabServer]:
-    """JupyterLab 4 on 127.0.0.1 (random free port) serving a temp dir with the tour notebook."""
-    base = tmp_path_factory.mktemp("lab")
+@contextlib.contextmanager
+def start_lab_server(base: Path, log: Path) -> Iterator[LabServer]:
+    """JupyterLab 4 on 127.0.0.1 (random free port) serving ``base/root`` with the tour notebook."""
     root = base / "root"
-    root.mkdir()
+    root.mkdir(parents=True, exist_ok=True)
     shutil.copy(TOUR, root / TOUR.name)
     settings = base / "settings"
     _write_lab_settings(settings)
+    _write_page_config(base / "config")
     # A token from the test environment (NBEDA_TEST_TOKEN) or a fresh random one; handed
     # to the server through its environment so it never shows in a process listing.
     token = os.environ.get("NBEDA_TEST_TOKEN") or secrets.token_hex(24)
@@ -207,7 +221,6 @@ def lab_server(tmp_path_factory: pytest.TempPathFactory, artifacts: Path) -> Ite
         PYTHONUNBUFFERED="1",
     )
     env.pop("JUPYTER_PATH", None)
-    log = artifacts / "jupyterlab.log"
     last_error = ""
     for _attempt in range(3):  # a free port may be taken between probing and binding
         port = _free_port()
@@ -229,9 +242,8 @@ def lab_server(tmp_path_factory: pytest.TempPathFactory, artifacts: Path) -> Ite
             cmd.append("--ServerApp.allow_root=True")  # CI runs as root in a throwaway machine
         fh = log.open("wb")
         proc = subprocess.Popen(cmd, cwd=root, env=env, stdout=fh, stderr=subprocess.STDOUT)
-        url = f"http://127.0.0.1:{port}"
-        server = LabServer(url=url, token=token, root=root, process=proc, log=log)
-        deadline = time.monotonic() + 60
+        server = LabServer(url=f"http://127.0.0.1:{port}", token=token, root=root, process=proc, log=log)
+        deadline = time.monotonic() + 90
         while time.monotonic() < deadline and proc.poll() is None:
             try:
                 server.api("/api/status")
@@ -256,7 +268,17 @@ def lab_server(tmp_path_factory: pytest.TempPathFactory, artifacts: Path) -> Ite
                 proc.wait(timeout=10)
             fh.close()
         return
-    pytest.fail(f"JupyterLab did not start on 127.0.0.1; last output:\n{last_error}")
+    raise RuntimeError(f"JupyterLab did not start on 127.0.0.1; last output:\n{last_error}")
+
+
+@pytest.fixture(scope="session")
+def lab_server(tmp_path_factory: pytest.TempPathFactory, artifacts: Path) -> Iterator[LabServer]:
+    """One JupyterLab for the whole layer."""
+    try:
+        with start_lab_server(tmp_path_factory.mktemp("lab"), artifacts / "jupyterlab.log") as server:
+            yield server
+    except RuntimeError as exc:
+        pytest.fail(str(exc))
 
 
 # --------------------------------------------------------------------------- browser
@@ -283,6 +305,7 @@ class Session:
     page: Any
     guard: NetworkGuard
     console: ConsoleLog
+    saved: dict[str, Any] = field(default_factory=dict)  # e.g. the notebook as saved after the run
 
     def close(self) -> None:
         self.context.close()
@@ -307,3 +330,20 @@ def open_session(browser: Any, *, origin: str | None = None, allow_file: bool = 
     page.set_default_timeout(30_000)
     return Session(context=context, page=page, guard=guard, console=console)
 
+
+
+def save_doc_screenshot(page: Any, element: Any, path: Path, *, max_height: int = VIEWPORT["height"]) -> None:
+    """A viewport-sized PNG of ``element`` scrolled to the top of the view (for the README).
+
+    At most 1200×800 px: what a person sees on opening the tab, not the whole scroll.
+    """
+    element.evaluate("e => e.scrollIntoView({block: 'start'})")
+    page.wait_for_timeout(150)
+    box = element.bounding_box()
+    if box is None:
+        return
+    x = max(box["x"] - 8, 0)
+    y = max(box["y"] - 8, 0)
+    width = min(box["width"] + 16, VIEWPORT["width"] - x)
+    height = min(box["height"] + 16, max_height - y, VIEWPORT["height"] - y)
+    page.screenshot(path=str(path), clip={"x": x, "y": y, "width": width, "height": height})
