@@ -260,6 +260,19 @@ def test_density_peaks_agree_with_scipy_gaussian_kde():
     assert shape_of(samples[2])["modes"] == 3
 
 
+def test_piled_at_a_limit_is_read_and_flagged():
+    """Seeded censored data: a detection limit of 1.0 replaces every smaller value (about 30%)."""
+    x = np.random.default_rng(31).lognormal(0.3, 0.6, size=2000)
+    x = np.where(x < 1.0, 1.0, x)
+    share = (x == 1.0).mean()
+    res = shape_of_frame(pd.DataFrame({"residue": x}))
+    reading = res.table.loc["residue", "reading"]
+    assert f"piled at its lower limit ({share:.0%} of values)" in reading
+    assert any(f.startswith("residue: piled at its lower limit") for f in res.flags)
+    # an ordinary normal sample is not piled anywhere
+    assert "piled" not in shape_of(np.random.default_rng(1).normal(size=2000))["reading"]
+
+
 def test_integer_scale_does_not_peak_at_every_level():
     """A 1-7 rating with a single-peaked pmf: bandwidth widened to the level gap -> one mode."""
     p = np.array([0.05, 0.10, 0.20, 0.30, 0.20, 0.10, 0.05])
@@ -459,6 +472,8 @@ def test_charts_are_pre_aggregated(demo_frame, demo_shape):
     assert _datasets_rows(over) < 200 * 7 + 1
     with pytest.raises(KeyError):
         demo_shape.chart("plot_id")
+    html = demo_shape.chart_html()
+    assert html.count("<svg") == 2  # the overview of all numeric columns, then the first column
 
 
 def test_panel_picker_redraws(demo_shape):

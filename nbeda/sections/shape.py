@@ -266,6 +266,14 @@ class ShapeResult(SectionResult):
             .resolve_scale(x="independent", y="independent")
         )
 
+    def chart_html(self) -> str:
+        """The overview of all numeric columns, then the charts of the default column."""
+        parts = [self._chart_for(-1)] if len(self.numeric_positions) > 1 else []
+        first = self._position(None)
+        if first is not None:
+            parts.append(self._chart_for(first))
+        return "".join(parts)
+
     # ----------------------------------------------------------------- code
     def code(self, frame_name: str = "df", column: Any = None) -> str:
         """Plain code rebuilding ``shape`` (and ``shape_hist``/``shape_hist_edges`` for a numeric column)."""
@@ -359,6 +367,10 @@ def build(ctx: Context, **_: Any) -> ShapeResult:
     if len(multi):
         flags.append(f"{len(multi)} column(s) with two or more density peaks (a mixture of groups?): "
                      + ", ".join(str(c) for c in multi[:10]))
+    for label, reading in zip(table.index, table["reading"], strict=True):
+        if isinstance(reading, str) and "piled at its" in reading:
+            part = next(p for p in reading.split("; ") if p.startswith("piled at its"))
+            flags.append(f"{label}: {part} — a floor or ceiling, a censored measurement or a default value?")
     for label, row in dates.iterrows():
         share = row["top_share"]
         if row["n"] >= 20 and share == share and share >= 0.05:
