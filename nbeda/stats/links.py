@@ -745,6 +745,11 @@ def links_code(ctx: Context, info: dict[str, Any], frame_name: str = "df") -> st
         lines.append(f"    ({i}, {lit(ctx.labels[i])}, {lit(all_roles[i])}, {lit(kind)}),")
     lines.append("]")
     body = "\n".join(lines) + "\n"
+    corr_lines = ""
+    if info["need_p"]:
+        corr_lines += ('    pearson[np.ix_(corr_cols, corr_cols)] = values.corr(method="pearson").to_numpy()\n')
+    if info["need_s"]:
+        corr_lines += ('    spearman[np.ix_(corr_cols, corr_cols)] = values.corr(method="spearman").to_numpy()\n')
     body += f"""\
 inputs = [column_inputs(frame.iloc[:, i], kind) for i, _, _, kind in columns]
 labels = [label for _, label, _, _ in columns]
@@ -763,11 +768,7 @@ if corr_cols:
     values = pd.DataFrame(num[:, corr_cols])
     big = values.abs().max()
     values = values / big.where(big > 0, 1.0)
-    if {info["need_p"]!r}:
-        pearson[np.ix_(corr_cols, corr_cols)] = values.corr(method="pearson").to_numpy()
-    if {info["need_s"]!r}:
-        spearman[np.ix_(corr_cols, corr_cols)] = values.corr(method="spearman").to_numpy()
-
+{corr_lines}
 links = assemble_links(labels, roles, kinds, num, codes, pearson, spearman,
                        method={info["method"]!r}, confidence={o.confidence!r},
                        mutual_info={info["mutual_info"]!r}, kendall_max_rows={KENDALL_MAX_ROWS!r},
