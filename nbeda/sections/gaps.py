@@ -263,18 +263,18 @@ class GapsResult(SectionResult):
     def code(self, frame_name: str = "df") -> str:
         ctx = self.ctx
         if ctx.n_cols <= 200:  # one role per line, with the column it belongs to
-            roles = "[\n" + "".join(f"    {lit(r)},  # {lit(label)}\n" for r, label in zip(ctx.roles, ctx.labels, strict=True)) + "]"
+            role_list = "[\n" + "".join(f"    {lit(r)},  # {lit(label)}\n" for r, label in zip(ctx.roles, ctx.labels, strict=True)) + "]"
         else:
-            roles = "[" + ", ".join(lit(r) for r in ctx.roles) + "]"
+            role_list = "[" + ", ".join(lit(r) for r in ctx.roles) + "]"
         body = f"""\
 # Roles by column position, as inferred in the Roles tab (its code rebuilds them).
-roles = {roles}
+column_roles = {role_list}
 
 # The Gaps table (one row per column), the top missingness patterns and every MAR test.
-gaps, gaps_patterns, gaps_tests = gaps_tables({frame_name}, roles)
+gaps, gaps_patterns, gaps_tests = gaps_tables({frame_name}, column_roles)
 
 # Little's MCAR test on the numeric columns (ML mean and covariance by EM).
-numeric, categorical = column_kinds({frame_name}, roles)
+numeric, categorical = column_kinds({frame_name}, column_roles)
 x = np.column_stack([as_float({frame_name}.iloc[:, j]) for j in numeric]) if numeric else np.empty((len({frame_name}), 0))
 gaps_mcar = little_mcar(x, names=[{frame_name}.columns[j] for j in numeric], seed={ctx.options.seed!r})
 

@@ -124,11 +124,11 @@ def as_float(s):
     return s.to_numpy(dtype="float64", na_value=np.nan)
 
 
-def column_kinds(frame, roles):
+def column_kinds(frame, role_list):
     """Split column positions into numeric and categorical ones, from the Roles tab's roles."""
     numeric, categorical = [], []
     dtypes = list(frame.dtypes)
-    for j, role in enumerate(roles):
+    for j, role in enumerate(role_list):
         dt = dtypes[j]
         if isinstance(dt, pd.CategoricalDtype):
             num_coded = pd.api.types.is_numeric_dtype(dt.categories.dtype) and not pd.api.types.is_bool_dtype(
@@ -410,13 +410,13 @@ def mar_hint(frame, miss, tests, x, alpha=0.05):
     return words, yl, p
 
 
-def gaps_tables(frame, roles, top=20):
+def gaps_tables(frame, role_list, top=20):
     """The Gaps table (one row per column), the pattern table and the MAR tests."""
     n, k = frame.shape
     labels = list(frame.columns)
     miss = frame.isna().to_numpy(dtype=bool) if k else np.zeros((n, 0), dtype=bool)
     patterns, counts, _ = missing_patterns(miss)
-    numeric, categorical = column_kinds(frame, roles)
+    numeric, categorical = column_kinds(frame, role_list)
     tests = mar_tests(frame, miss, numeric, categorical)
     rows = []
     for j in range(k):
@@ -429,7 +429,7 @@ def gaps_tables(frame, roles, top=20):
         hint, with_col, p = mar_hint(frame, miss, tests, j)
         rows.append(
             [
-                roles[j],
+                role_list[j],
                 n_miss,
                 100.0 * n_miss / n if n else np.nan,
                 n_disg,
