@@ -8,6 +8,7 @@ largest absolute difference from pandas.  Run:  python benchmarks/bench_links.py
 
 from __future__ import annotations
 
+import os
 import sys
 import time
 
@@ -34,14 +35,15 @@ def main() -> None:
     df = frame(n, k)
     x = df.to_numpy()
 
-    t0 = time.perf_counter()
+    load = os.getloadavg()[0]
+    t0, c0 = time.perf_counter(), time.process_time()
     ours_s = fast_spearman(x)
     ours_p, _ = fast_pearson(x)
-    ours = time.perf_counter() - t0
+    ours, ours_cpu = time.perf_counter() - t0, time.process_time() - c0
 
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     pd_s = df.corr(method="spearman").to_numpy()
-    t_pd_s = time.perf_counter() - t0
+    t_pd_s, c_pd_s = time.perf_counter() - t0, time.process_time() - c0
     t0 = time.perf_counter()
     pd_p = df.corr(method="pearson").to_numpy()
     t_pd_p = time.perf_counter() - t0
@@ -53,6 +55,9 @@ def main() -> None:
     print(f"ours (Spearman + Pearson, pairwise-complete): {ours:8.2f} s")
     print(f"pandas corr(method='spearman'):               {t_pd_s:8.2f} s   ratio {t_pd_s / ours:6.1f}x")
     print(f"pandas corr(method='pearson'):                {t_pd_p:8.2f} s   ratio {t_pd_p / ours:6.2f}x")
+    print(f"CPU seconds (all threads): ours {ours_cpu:.2f}, pandas spearman {c_pd_s:.2f} "
+          f"(ratio {c_pd_s / ours_cpu:.1f}x); 1-minute load average at start {load:.1f} "
+          f"on {os.cpu_count()} CPUs")
     print(f"max |Δ| Spearman vs pandas: {d_s:.2e}   Pearson vs pandas: {d_p:.2e}")
 
 
