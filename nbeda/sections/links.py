@@ -230,7 +230,8 @@ def build(ctx: Context, method: str = "auto", mutual_info: bool = False, **_: An
     if info["sample_rows"] is not None:
         notes.append(f"Computed on a seeded sample of {len(info['sample_rows']):,} rows "
                      f"(seed {ctx.options.seed}).")
-    if ctx.n_rows > L.KENDALL_MAX_ROWS and (table["measure"] == "kendall").any():
+    n_used = ctx.n_rows if info["sample_rows"] is None else len(info["sample_rows"])
+    if n_used > L.KENDALL_MAX_ROWS and (table["measure"] == "kendall").any():
         notes.append(f"Kendall's τ-b runs on a seeded sample of {L.KENDALL_MAX_ROWS:,} rows "
                      f"(seed {ctx.options.seed}).")
     if k > HEATMAP_COLUMNS:
