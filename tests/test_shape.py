@@ -325,6 +325,8 @@ def test_demo_readings(demo_shape, demo_frame):
     assert t.loc["humidity_pct", "reading"] == "roughly symmetric"
     assert t.loc["pest_score", "n"] == demo_frame["pest_score"].notna().sum()
     assert "soil_ph" in t.index and t.loc["soil_ph", "skew"] < -1  # the -999 sentinel drags it left
+    assert "skew comes from a few extreme values" in t.loc["soil_ph", "reading"]
+    assert "few extreme values" not in t.loc["irrigation_l", "reading"]
     assert "plot_id" not in t.index and "network" not in t.index
     assert any("transform changes what a mean means" in c for c in demo_shape.cautions)
     assert any("multiple testing" in c for c in demo_shape.cautions)

@@ -21,7 +21,9 @@ Rules (each documented here and in the emitted code):
   skewed (Bulmer 1979 rule of thumb; common practice); excess kurtosis > 1
   heavy-tailed, < −1 light-tailed (common practice); the smallest or largest
   value being the most common one and holding ≥ 10% of the values reads
-  "piled at a limit"; ≥ 2 density peaks reads bimodal/multimodal.
+  "piled at a limit"; ≥ 2 density peaks reads bimodal/multimodal; |skew| ≥ 1
+  with |quartile skew| < 0.05 reads "skew comes from a few extreme values" (our
+  rule: a gamma law skewed that much has Bowley skew ≥ 0.11).
 * Headline normality test: Shapiro–Wilk when 3 ≤ n ≤ 5000; above 5000 rows
   D'Agostino–Pearson K² on all values (Shapiro–Wilk is then also run, on a seeded
   random sample of 5000, and kept in ``shapiro_stat``/``shapiro_p``).  K² needs
@@ -338,6 +340,10 @@ def shape_of(x, seed=0, sample_max=5000, small_skew=0.5):
         words.append("roughly symmetric")
     else:
         words.append(f"{'strongly' if abs(g1) >= 1 else 'moderately'} {side}-skewed ({above})")
+    qs = row["quartile_skew"]
+    if g1 == g1 and abs(g1) >= 1 and qs == qs and abs(qs) < 0.05:
+        words.append("skew comes from a few extreme values (the quartiles are symmetric)")
+        notes.append("check the extreme values (possible errors or codes) before transforming")
     if g2 == g2 and g2 > 1:
         words.append("heavy-tailed")
     elif g2 == g2 and g2 < -1:
