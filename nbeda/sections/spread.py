@@ -176,6 +176,8 @@ def build(ctx: Context, **_: Any) -> SpreadResult:
         empty = [str(c) for c, v in zip(table.index, table["count"], strict=True) if v == 0]
         if empty:
             flags.append(f"no finite values in: {', '.join(empty[:10])}")
+    if int((table["count"] > 0).sum()) > CHART_MAX_COLUMNS:
+        notes.append(f"The chart draws the first {CHART_MAX_COLUMNS} numeric columns; the table has them all.")
     notes.append(
         "Identifier, text, datetime, constant and empty columns are not summarised here (see Roles)."
     )

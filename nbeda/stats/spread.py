@@ -369,7 +369,7 @@ def level_positions(ctx: Context) -> list[int]:
 def compute_spread(ctx: Context) -> pd.DataFrame:
     """The numeric Spread table for ``ctx`` (index ``column``)."""
     positions = ctx.numeric_positions()
-    x = pd.DataFrame(ctx.float_frame(positions), columns=ctx.index_for(positions))
+    x = pd.DataFrame(ctx.float_frame(positions), columns=ctx.index_for(positions), copy=False)
     if not positions:
         x = pd.DataFrame(index=ctx.frame.index)
     table = spread_table(x, ctx.options.confidence)
