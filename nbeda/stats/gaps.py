@@ -539,9 +539,10 @@ def little_mcar(x, names=None, max_rows=50_000, seed=0):
         "iterations": 0, "converged": False,
     }
     obs = ~np.isnan(x)
-    with np.errstate(all="ignore"):
-        lo, hi = np.nanmin(np.where(obs, x, np.inf), axis=0), np.nanmax(np.where(obs, x, -np.inf), axis=0)
-    keep = [j for j in range(x.shape[1]) if obs[:, j].any() and lo[j] < hi[j]]
+    keep = []
+    if x.shape[0]:
+        lo, hi = np.min(np.where(obs, x, np.inf), axis=0), np.max(np.where(obs, x, -np.inf), axis=0)
+        keep = [j for j in range(x.shape[1]) if lo[j] < hi[j]]  # at least two distinct values
     x, obs = x[:, keep], obs[:, keep]
     out["columns"] = [names[j] for j in keep]
     p = len(keep)
