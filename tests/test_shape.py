@@ -13,7 +13,7 @@ import warnings
 import numpy as np
 import pandas as pd
 import pytest
-from helpers import assert_same_table, assert_unchanged, run_code, snapshot
+from helpers import assert_same_table, assert_unchanged, hostile_frames, run_code, snapshot
 from scipy import stats
 from scipy.signal import find_peaks
 
@@ -441,6 +441,30 @@ def test_code_rebuilds_table_and_histogram(demo_frame, demo_shape):
     ns2 = run_code(demo_shape.code(), demo_frame)
     first = demo_shape.table.index[0]
     pd.testing.assert_frame_equal(ns2["shape_hist"], demo_shape.hist(first)[0])
+
+
+def test_code_rebuilds_levels_and_dates(demo_frame, demo_shape):
+    ns = run_code(demo_shape.code(), demo_frame)
+    assert_same_table(ns["shape_levels"], demo_shape.levels)
+    assert_same_table(ns["shape_dates"], demo_shape.dates)
+
+
+@pytest.mark.parametrize(
+    "key",
+    ["tz_datetimes", "timedelta_period", "mixed_object", "lists_and_dicts", "nullable_dtypes",
+     "ordered_categorical", "script_names_and_values", "non_string_names", "zero_rows", "one_row"],
+)
+def test_code_rebuilds_levels_and_dates_on_hostile_frames(key):
+    frame = hostile_frames()[key]
+    snap = snapshot(frame)
+    res = shape_of_frame(frame)
+    ns = run_code(res.code("frame"), frame, frame_name="frame")
+    assert_same_table(ns["shape"], res.table)
+    if len(res.levels):
+        assert_same_table(ns["shape_levels"], res.levels)
+    if len(res.dates):
+        assert_same_table(ns["shape_dates"], res.dates)
+    assert_unchanged(frame, snap)
 
 
 def test_code_with_row_sample_and_duplicate_labels():

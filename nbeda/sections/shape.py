@@ -17,6 +17,7 @@ from nbeda._context import Context
 from nbeda.sections._base import SectionResult
 from nbeda.stats.shape import (
     box_summary,
+    categorical_positions,
     compute_shape,
     date_counts,
     date_summary,
@@ -332,10 +333,7 @@ class ShapeResult(SectionResult):
 
 def build(ctx: Context, **_: Any) -> ShapeResult:
     table = compute_shape(ctx)
-    numeric = set(ctx.numeric_positions())
-    level_positions = [
-        i for i in ctx.with_role("nominal", "ordinal", "boolean") if i not in numeric
-    ]
+    level_positions = categorical_positions(ctx)
     date_positions = ctx.with_role("datetime")
     levels = level_summary(ctx, level_positions)
     dates = date_summary(ctx, date_positions)

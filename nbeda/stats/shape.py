@@ -85,6 +85,10 @@ __all__ = [
     "compute_shape",
     "sample_rows",
     "level_summary",
+    "level_counts_of",
+    "level_row",
+    "date_row",
+    "categorical_positions",
     "level_counts",
     "date_summary",
     "date_counts",
@@ -466,8 +470,8 @@ def _shape_frame(rows: list[dict[str, Any]], index: pd.Index) -> pd.DataFrame:
 # ---------------------------------------------------------------------------
 # Levels (nominal, ordinal labels, boolean) and dates
 # ---------------------------------------------------------------------------
-def _level_counts_one(s: pd.Series) -> tuple[pd.Series, bool]:
-    """Counts per level, in level order for ordered categoricals, else by frequency."""
+def level_counts_of(s):
+    """Counts per level: ordered categoricals in level order, otherwise most common first."""
     values = s.dropna()
     if isinstance(s.dtype, pd.CategoricalDtype):
         counts = values.value_counts(sort=False).reindex(s.dtype.categories, fill_value=0)
@@ -477,45 +481,42 @@ def _level_counts_one(s: pd.Series) -> tuple[pd.Series, bool]:
     else:
         try:
             counts = values.value_counts(sort=False)
-        except TypeError:  # unhashable values
+        except TypeError:  # unhashable values (lists, dicts): counted by their text
             counts = values.astype(str).value_counts(sort=False)
     order = np.argsort(-counts.to_numpy(), kind="stable")
     return counts.iloc[order], False
 
 
+def level_row(s):
+    """Levels, top level and its share, imbalance ratio (largest/smallest) and normalised entropy."""
+    counts, ordered = level_counts_of(s)
+    c = counts.to_numpy(dtype="float64")
+    n = float(c.sum())
+    used = c[c > 0]
+    k = int(used.size)
+    row = {"n": int(n), "levels": k, "ordered": ordered, "top": None, "top_share": float("nan"),
+           "imbalance_ratio": float("nan"), "entropy_norm": float("nan")}
+    if n > 0:
+        p = used / n
+        row["top"] = str(counts.index[int(np.argmax(c))])
+        row["top_share"] = float(c.max() / n)
+        row["imbalance_ratio"] = float(used.max() / used.min())
+        row["entropy_norm"] = float(-(p * np.log(p)).sum() / np.log(k)) if k > 1 else 0.0
+    return row
+
+
+LEVEL_COLUMNS = ["n", "levels", "ordered", "top", "top_share", "imbalance_ratio", "entropy_norm"]
+
+
 def level_summary(ctx: Context, positions: list[int]) -> pd.DataFrame:
     """Per categorical column: levels, top level and share, imbalance ratio, normalised entropy."""
-    rows = []
-    for i in positions:
-        counts, ordered = _level_counts_one(ctx.series(i))
-        c = counts.to_numpy(dtype="float64")
-        n = float(c.sum())
-        used = c[c > 0]
-        k = int(used.size)
-        if n > 0:
-            p = used / n
-            entropy = float(-(p * np.log(p)).sum() / np.log(k)) if k > 1 else 0.0
-            top = counts.index[int(np.argmax(c))]
-        else:
-            entropy, top = float("nan"), None
-        rows.append(
-            {
-                "n": int(n),
-                "levels": k,
-                "ordered": ordered,
-                "top": None if top is None else str(top),
-                "top_share": float(c.max() / n) if n > 0 else float("nan"),
-                "imbalance_ratio": float(used.max() / used.min()) if k > 0 else float("nan"),
-                "entropy_norm": entropy,
-            }
-        )
-    cols = ["n", "levels", "ordered", "top", "top_share", "imbalance_ratio", "entropy_norm"]
-    return pd.DataFrame(rows, index=ctx.index_for(positions), columns=cols)
+    rows = [level_row(ctx.series(i)) for i in positions]
+    return pd.DataFrame(rows, index=ctx.index_for(positions), columns=LEVEL_COLUMNS)
 
 
 def level_counts(ctx: Context, i: int, top: int = 10) -> pd.DataFrame:
     """Frequency table of one column: top ``top`` levels + "other" (ordered levels all kept in order)."""
-    counts, ordered = _level_counts_one(ctx.series(i))
+    counts, ordered = level_counts_of(ctx.series(i))
     n = int(counts.sum())
     labels = [str(v) for v in counts.index]
     vals = counts.to_numpy(dtype="int64")
@@ -548,37 +549,32 @@ def _wall(t: pd.Series) -> pd.Series:
     return t.dt.tz_localize(None) if getattr(t.dt, "tz", None) is not None else t
 
 
+def date_row(s):
+    """First/last, span, median step and largest gap between distinct times, most common timestamp."""
+    t = to_datetimes(s).dropna()
+    row = {"n": int(t.size), "first": None, "last": None, "span": None, "median_step": None,
+           "largest_gap": None, "gap_after": None, "top_timestamp": None, "top_share": float("nan")}
+    if t.size:
+        ts = t.sort_values()
+        distinct = ts.drop_duplicates()
+        steps = distinct.diff().iloc[1:]
+        vc = t.value_counts()
+        row.update(first=str(ts.iloc[0]), last=str(ts.iloc[-1]), span=str(ts.iloc[-1] - ts.iloc[0]),
+                   top_timestamp=str(vc.index[0]), top_share=float(vc.iloc[0] / t.size))
+        if steps.size:
+            k = int(np.argmax(steps.to_numpy()))
+            row.update(median_step=str(steps.median()), largest_gap=str(steps.iloc[k]),
+                       gap_after=str(distinct.iloc[k]))
+    return row
+
+
+DATE_COLUMNS = ["n", "first", "last", "span", "median_step", "largest_gap", "gap_after", "top_timestamp", "top_share"]
+
+
 def date_summary(ctx: Context, positions: list[int]) -> pd.DataFrame:
     """Per datetime column: first/last, span, median step, largest gap, most common timestamp."""
-    rows = []
-    for i in positions:
-        t = to_datetimes(ctx.series(i)).dropna()
-        row: dict[str, Any] = {
-            "n": int(t.size), "first": None, "last": None, "span": None, "median_step": None,
-            "largest_gap": None, "gap_after": None, "top_timestamp": None, "top_share": float("nan"),
-        }
-        if t.size:
-            ts = t.sort_values()
-            distinct = ts.drop_duplicates()
-            steps = distinct.diff().iloc[1:]
-            vc = t.value_counts()
-            row.update(
-                first=str(ts.iloc[0]),
-                last=str(ts.iloc[-1]),
-                span=str(ts.iloc[-1] - ts.iloc[0]),
-                top_timestamp=str(vc.index[0]),
-                top_share=float(vc.iloc[0] / t.size),
-            )
-            if steps.size:
-                k = int(np.argmax(steps.to_numpy()))
-                row.update(
-                    median_step=str(steps.median()),
-                    largest_gap=str(steps.iloc[k]),
-                    gap_after=str(distinct.iloc[k]),
-                )
-        rows.append(row)
-    cols = ["n", "first", "last", "span", "median_step", "largest_gap", "gap_after", "top_timestamp", "top_share"]
-    return pd.DataFrame(rows, index=ctx.index_for(positions), columns=cols)
+    rows = [date_row(ctx.series(i)) for i in positions]
+    return pd.DataFrame(rows, index=ctx.index_for(positions), columns=DATE_COLUMNS)
 
 
 WEEKDAYS = ("Monday", "Tuesday", "Wednesday", "Thursday", "Friday", "Saturday", "Sunday")
@@ -661,7 +657,33 @@ shape = pd.DataFrame(
     if column_pos is not None and column_pos in positions:
         blocks.insert(6, function_source(fd_histogram))
         blocks.append(hist_code(ctx, column_pos, positions))
+    levels, dates = categorical_positions(ctx), ctx.with_role("datetime")
+    index = 'pd.Index([{f}.columns[i] for i in {v}], name="column", tupleize_cols=False, dtype=object)'
+    if levels:
+        blocks += [
+            "# Categorical columns (nominal, labelled ordinal, boolean), on all rows: one row each.",
+            function_source(level_counts_of),
+            function_source(level_row),
+            f"level_positions = {levels!r}\n"
+            f"shape_levels = pd.DataFrame([level_row({frame_name}.iloc[:, i]) for i in level_positions],\n"
+            f"    index={index.format(f=frame_name, v='level_positions')}, columns={LEVEL_COLUMNS!r})\n",
+        ]
+    if dates:
+        blocks += [
+            "# Datetime columns, on all rows: one row each.",
+            function_source(to_datetimes),
+            function_source(date_row),
+            f"date_positions = {dates!r}\n"
+            f"shape_dates = pd.DataFrame([date_row({frame_name}.iloc[:, i]) for i in date_positions],\n"
+            f"    index={index.format(f=frame_name, v='date_positions')}, columns={DATE_COLUMNS!r})\n",
+        ]
     return join_blocks(*blocks)
+
+
+def categorical_positions(ctx: Context) -> list[int]:
+    """Columns described by their levels: nominal, boolean and ordinal columns not analysed as numbers."""
+    numeric = set(ctx.numeric_positions())
+    return [i for i in ctx.with_role("nominal", "ordinal", "boolean") if i not in numeric]
 
 
 def hist_code(ctx: Context, column_pos: int, positions: list[int]) -> str:
