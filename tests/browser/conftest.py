@@ -67,6 +67,7 @@ class NetworkGuard:
     """Routes every request of a browser context; aborts and records non-local ones."""
 
     allow_file: bool = False
+    allow_local: bool = True  # False for the standalone file: it may request nothing at all
     blocked: list[str] = field(default_factory=list)
     requests: list[str] = field(default_factory=list)
 
@@ -77,7 +78,7 @@ class NetworkGuard:
         if parts.scheme == "file":
             return self.allow_file
         if parts.scheme in ("http", "https", "ws", "wss"):
-            return (parts.hostname or "") in LOCAL_HOSTS
+            return self.allow_local and (parts.hostname or "") in LOCAL_HOSTS
         return False
 
     def route(self, route: Any) -> None:
@@ -311,17 +312,27 @@ class Session:
         self.context.close()
 
 
-def open_session(browser: Any, *, origin: str | None = None, allow_file: bool = False) -> Session:
-    permissions = ["clipboard-read", "clipboard-write"] if origin else []
+def open_session(
+    browser: Any,
+    *,
+    origin: str | None = None,
+    allow_file: bool = False,
+    allow_local: bool = True,
+    javascript: bool = True,
+) -> Session:
+    """A fresh context + page behind a :class:`NetworkGuard`.
+
+    ``origin``: grant clipboard read/write there (the Copy button test reads it back).
+    """
     context = browser.new_context(
         viewport=VIEWPORT,
         device_scale_factor=1,
         service_workers="block",  # their requests would bypass the router
-        permissions=[],
+        java_script_enabled=javascript,
     )
     if origin:
-        context.grant_permissions(permissions, origin=origin)
-    guard = NetworkGuard(allow_file=allow_file)
+        context.grant_permissions(["clipboard-read", "clipboard-write"], origin=origin)
+    guard = NetworkGuard(allow_file=allow_file, allow_local=allow_local)
     guard.install(context)
     page = context.new_page()
     page.on("websocket", guard.on_websocket)
@@ -342,8 +353,14 @@ def save_doc_screenshot(page: Any, element: Any, path: Path, *, max_height: int 
     box = element.bounding_box()
     if box is None:
         return
+    bottom = VIEWPORT["height"]
+    area = page.locator(".jp-NotebookPanel:not(.lm-mod-hidden) .jp-WindowedPanel-outer, .jp-NotebookPanel-notebook")
+    if area.count():  # inside Lab: stop above the status bar
+        outer = area.first.bounding_box()
+        if outer:
+            bottom = min(bottom, outer["y"] + outer["height"])
     x = max(box["x"] - 8, 0)
     y = max(box["y"] - 8, 0)
     width = min(box["width"] + 16, VIEWPORT["width"] - x)
-    height = min(box["height"] + 16, max_height - y, VIEWPORT["height"] - y)
+    height = min(box["height"] + 16, max_height - y, bottom - y)
     page.screenshot(path=str(path), clip={"x": x, "y": y, "width": width, "height": height})
