@@ -11,6 +11,9 @@ import numpy as np
 import pandas as pd
 import pytest
 from helpers import assert_same_table, assert_unchanged, run_code, snapshot
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from hypothesis.extra.numpy import arrays
 from scipy import stats
 
 from nbeda.report import Report
@@ -58,6 +61,7 @@ def test_penguin_missing_counts_match_the_package():
     )
     # Too few gaps (2) for a two-group comparison: said so, not guessed.
     assert t.loc["bill_length_mm", "mar_hint"].startswith("not tested: too few gaps (2)")
+    assert any(n.startswith("Columns that go missing together") and "bill_length_mm & body_mass_g (r = 1.00)" in n for n in g.notes)
     ns = run_code(g.code("df"), df)
     assert_same_table(ns["gaps"], t)
     assert_same_table(ns["gaps_patterns"], g.patterns)
@@ -510,3 +514,20 @@ def test_fill_code_with_duplicate_labels_and_the_panel():
     pytest.importorskip("ipywidgets")
     panel = g.panel()
     assert panel is not None and "Filling gaps in m" in panel.children[-1].value
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    arrays(np.bool_, st.tuples(st.integers(0, 60), st.integers(1, 70))),
+)
+def test_patterns_agree_with_pandas_value_counts(miss):
+    """Packed-bit patterns (including more than 64 columns) against pandas' own
+    DataFrame.value_counts of the boolean rows."""
+    pats, counts, pid = missing_patterns(miss)
+    assert counts.sum() == miss.shape[0]
+    assert list(counts) == sorted(counts, reverse=True)
+    if miss.shape[0]:
+        np.testing.assert_array_equal(pats[pid], miss)
+        ref = pd.DataFrame(miss).value_counts()
+        got = {tuple(map(bool, p)): int(c) for p, c in zip(pats, counts, strict=True)}
+        assert got == {tuple(map(bool, k)): int(v) for k, v in ref.items()}

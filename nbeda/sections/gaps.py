@@ -636,6 +636,19 @@ def build(ctx: Context, **_: Any) -> GapsResult:
             )
         if t_with[j] and not str(t_hint[j]).startswith("weak"):
             flags.append(str(t_hint[j]) + ".")
+    if len(nullity) > 1:
+        r = nullity.to_numpy()
+        pairs = [
+            f"{nullity.index[a]} & {nullity.index[b]} (r = {r[a, b]:.2f})"
+            for a in range(len(r))
+            for b in range(a + 1, len(r))
+            if r[a, b] >= 0.9
+        ]
+        if pairs:
+            notes.append(
+                f"Columns that go missing together (nullity correlation ≥ 0.9): {', '.join(pairs[:10])}"
+                + (f" and {len(pairs) - 10} more pairs." if len(pairs) > 10 else ".")
+            )
     if n_disg and total == 0 and n and k:
         notes.append(f"…but {n_disg:,} disguised missing value(s) stand in for gaps (see the flags).")
     if ctx.options.sample and ctx.options.sample < n:
