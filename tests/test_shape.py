@@ -379,6 +379,11 @@ def test_dates_table_and_default_date_flag(demo_shape, demo_frame):
     assert row["largest_gap"] == str(pd.Timestamp("2024-01-02") - pd.Timestamp("1970-01-01"))
     assert row["gap_after"].startswith("1970-01-01")
     assert any("sown" in f and "placeholder" in f for f in res.flags)
+    # monthly records (each month ~8% of rows) are regular, not a placeholder
+    monthly = pd.Series(pd.date_range("2024-01-01", periods=12, freq="MS")).repeat(10).reset_index(drop=True)
+    res2 = shape_of_frame(pd.DataFrame({"month": monthly, "v": np.arange(120.0) % 7}))
+    assert res2.dates.loc["month", "top_share"] == pytest.approx(1 / 12)
+    assert not any("month" in f for f in res2.flags)
 
 
 # --------------------------------------------------------------------------- bad input

@@ -371,7 +371,8 @@ def build(ctx: Context, **_: Any) -> ShapeResult:
             flags.append(f"{label}: {part} — a floor or ceiling, a censored measurement or a default value?")
     for label, row in dates.iterrows():
         share = row["top_share"]
-        if row["n"] >= 20 and share == share and share >= 0.05:
+        # our rule: >= 5% of records on one timestamp holding >= 5x the median count per timestamp
+        if row["n"] >= 20 and share == share and share >= 0.05 and row["top_vs_median"] >= 5:
             flags.append(f"{label}: {share:.0%} of records share one timestamp ({row['top_timestamp']}) — a default or placeholder date?")
         elif isinstance(row["top_timestamp"], str) and row["top_timestamp"][:10] in ("1970-01-01", "1900-01-01"):
             flags.append(f"{label}: the most common timestamp is {row['top_timestamp']}, a usual default date")

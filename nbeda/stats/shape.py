@@ -553,14 +553,16 @@ def date_row(s):
     """First/last, span, median step and largest gap between distinct times, most common timestamp."""
     t = to_datetimes(s).dropna()
     row = {"n": int(t.size), "first": None, "last": None, "span": None, "median_step": None,
-           "largest_gap": None, "gap_after": None, "top_timestamp": None, "top_share": float("nan")}
+           "largest_gap": None, "gap_after": None, "top_timestamp": None, "top_share": float("nan"),
+           "top_vs_median": float("nan")}
     if t.size:
         ts = t.sort_values()
         distinct = ts.drop_duplicates()
         steps = distinct.diff().iloc[1:]
         vc = t.value_counts()
         row.update(first=str(ts.iloc[0]), last=str(ts.iloc[-1]), span=str(ts.iloc[-1] - ts.iloc[0]),
-                   top_timestamp=str(vc.index[0]), top_share=float(vc.iloc[0] / t.size))
+                   top_timestamp=str(vc.index[0]), top_share=float(vc.iloc[0] / t.size),
+                   top_vs_median=float(vc.iloc[0] / vc.median()))
         if steps.size:
             k = int(np.argmax(steps.to_numpy()))
             row.update(median_step=str(steps.median()), largest_gap=str(steps.iloc[k]),
@@ -568,7 +570,10 @@ def date_row(s):
     return row
 
 
-DATE_COLUMNS = ["n", "first", "last", "span", "median_step", "largest_gap", "gap_after", "top_timestamp", "top_share"]
+DATE_COLUMNS = [
+    "n", "first", "last", "span", "median_step", "largest_gap", "gap_after", "top_timestamp", "top_share",
+    "top_vs_median",
+]
 
 
 def date_summary(ctx: Context, positions: list[int]) -> pd.DataFrame:
