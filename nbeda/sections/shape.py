@@ -277,7 +277,9 @@ class ShapeResult(SectionResult):
 
     # ----------------------------------------------------------------- code
     def code(self, frame_name: str = "df", column: Any = None) -> str:
-        """Plain code rebuilding ``shape`` (and ``shape_hist``/``shape_hist_edges`` for a numeric column)."""
+        """Plain code rebuilding ``shape``, the histogram of one numeric column (``shape_hist``,
+        ``shape_hist_edges``; default: the first numeric column) and the ``shape_levels`` and
+        ``shape_dates`` tables."""
         pos = None
         try:
             pos = self._position(column)
@@ -350,7 +352,10 @@ def build(ctx: Context, **_: Any) -> ShapeResult:
         "a peak counts when its prominence is ≥ 10% of the highest; needs n ≥ 20).",
     ]
     if ctx.options.sample and ctx.options.sample < ctx.n_rows:
-        notes.append(f"Computed on a seeded random sample of {int(ctx.options.sample):,} rows (seed {ctx.options.seed}).")
+        notes.append(
+            f"Numeric columns computed on a seeded random sample of {int(ctx.options.sample):,} rows "
+            f"(seed {ctx.options.seed}); the levels and dates tables use all rows."
+        )
     skipped = [str(ctx.labels[i]) for i in ctx.with_role("identifier", "text", "constant", "empty")]
     if skipped:
         notes.append(f"Not described here (identifier, text, constant or empty): {', '.join(skipped[:10])}"
