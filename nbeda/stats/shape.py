@@ -556,17 +556,15 @@ def date_row(s):
            "largest_gap": None, "gap_after": None, "top_timestamp": None, "top_share": float("nan"),
            "top_vs_median": float("nan")}
     if t.size:
-        ts = t.sort_values()
-        distinct = ts.drop_duplicates()
-        steps = distinct.diff().iloc[1:]
-        vc = t.value_counts()
-        row.update(first=str(ts.iloc[0]), last=str(ts.iloc[-1]), span=str(ts.iloc[-1] - ts.iloc[0]),
+        vc = t.value_counts()  # hashed once; only the distinct times are sorted
+        distinct = vc.index.sort_values()
+        row.update(first=str(distinct[0]), last=str(distinct[-1]), span=str(distinct[-1] - distinct[0]),
                    top_timestamp=str(vc.index[0]), top_share=float(vc.iloc[0] / t.size),
                    top_vs_median=float(vc.iloc[0] / vc.median()))
-        if steps.size:
-            k = int(np.argmax(steps.to_numpy()))
-            row.update(median_step=str(steps.median()), largest_gap=str(steps.iloc[k]),
-                       gap_after=str(distinct.iloc[k]))
+        if distinct.size > 1:
+            steps = distinct[1:] - distinct[:-1]
+            k = int(steps.argmax())
+            row.update(median_step=str(steps.median()), largest_gap=str(steps[k]), gap_after=str(distinct[k]))
     return row
 
 
