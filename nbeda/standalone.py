@@ -61,7 +61,7 @@ EXTRA_CSS = """
 .nbeda .nb-panel { display: none; }
 .nbeda .nb-panel > h3 { margin: 4px 0 8px 0; font-size: 15px; }
 .nbeda .nb-options { color: #555; font-size: 12px; }
-.nbeda iframe.nb-iframe { width: 100%; border: 0; }
+.nbeda iframe.nb-iframe { display: block; max-width: 100%; border: 0; }
 """
 
 _TAB_IDS = itertools.count()

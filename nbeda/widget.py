@@ -38,8 +38,10 @@ _STYLE = f"<style>{CSS}{EXTRA_CSS}</style>"
 STATES = ("pending", "computing", "done", "unavailable", "error")
 
 _FIT_SCRIPT = (
-    "<script>(function(){function fit(){var f=window.frameElement;if(f){"
-    "f.style.height=(document.documentElement.scrollHeight+6)+'px';}}"
+    "<script>(function(){function fit(){var f=window.frameElement;if(!f){return;}"
+    "var e=document.querySelector('.vega-embed svg, .vega-embed canvas');if(!e){return;}"
+    "var r=e.getBoundingClientRect();if(r.width>0&&r.height>0){"
+    "f.style.width=Math.ceil(r.width+r.left+16)+'px';f.style.height=Math.ceil(r.height+r.top+16)+'px';}}"
     "window.addEventListener('load',fit);setTimeout(fit,200);setTimeout(fit,1000);"
     "if(window.ResizeObserver){new ResizeObserver(fit).observe(document.body);}})();</script>"
 )
@@ -59,7 +61,8 @@ def interactive_chart_html(chart: Any) -> str:
         page = chart.to_html(inline=True, embed_options={"actions": False})
     except Exception:  # no bundle available: static SVG still works offline
         return chart_html(chart)
-    page = page.replace("</body>", _FIT_SCRIPT + "</body>", 1)
+    head, sep, tail = page.rpartition("</body>")  # the last one: the bundle's JS has "</body>" in a string
+    page = head + _FIT_SCRIPT + sep + tail if sep else page + _FIT_SCRIPT
     height = 60
     try:
         spec = chart.to_dict()
@@ -67,7 +70,7 @@ def interactive_chart_html(chart: Any) -> str:
     except Exception:
         height = 360
     return (
-        f"<div class='nb-chart'><iframe class='nb-iframe' title='chart' style='height:{height}px'"
+        f"<div class='nb-chart'><iframe class='nb-iframe' title='chart' style='width:640px;height:{height}px'"
         f" srcdoc=\"{html.escape(page, quote=True)}\"></iframe></div>"
     )
 
