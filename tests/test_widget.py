@@ -259,6 +259,11 @@ def test_interactive_charts_are_offline_and_leave_altair_alone(small_frame):
     body = w.bodies["roles"]
     frame_doc = html.unescape(re.search(r'srcdoc="([^"]*)"', body).group(1))
     assert "vegaEmbed(" in frame_doc
+    # the frame's sizing script closes the page, after the embedding call (not inside the bundle)
+    from nbeda.widget import _FIT_SCRIPT
+
+    assert frame_doc.count(_FIT_SCRIPT) == 1 and _FIT_SCRIPT + "</body>" in frame_doc
+    assert frame_doc.index(_FIT_SCRIPT) > frame_doc.rindex("vegaEmbed('#vis'")
     # every script is inline: no script or stylesheet is fetched from anywhere
     assert not re.search(r"<script[^>]*\bsrc=", frame_doc) and "<link" not in frame_doc
     assert alt.renderers.active == before
