@@ -369,6 +369,9 @@ def test_dates_table_and_default_date_flag(demo_shape, demo_frame):
     assert per_month["count"].sum() == s.notna().sum()
     assert list(per_month["count"]) == s.dt.month.value_counts().sort_index().tolist()
     assert list(per_weekday["count"]) == s.dt.day_of_week.value_counts().reindex(range(7), fill_value=0).tolist()
+    # time zones: 40 hourly readings across the 2024 spring DST change span 39 elapsed hours
+    tz = shape_of_frame(hostile_frames()["tz_datetimes"]).dates.loc["when"]
+    assert tz["span"] == str(pd.Timedelta(hours=39)) and tz["median_step"] == str(pd.Timedelta(hours=1))
     # a placeholder date on 30% of the records is flagged
     when = pd.Series(pd.date_range("2024-01-01", periods=100, freq="D"))
     when.iloc[::3] = pd.Timestamp("1970-01-01")

@@ -15,7 +15,8 @@ Rules (each documented here and in the emitted code):
   ``scipy.stats.skew(bias=False)``), ``kurtosis`` = excess G2 (= ``Series.kurt()``
   = ``scipy.stats.kurtosis(bias=False)``); standard errors
   SES = sqrt(6n(n−1)/((n−2)(n+1)(n+3))) and SEK = 2·SES·sqrt((n²−1)/((n−3)(n+5)))
-  (the usual small-sample formulas, e.g. Cramer 1997; from memory).
+  (the usual textbook small-sample formulas, from memory; the tests check them
+  against the spread of G1 and G2 over seeded normal samples).
 * ``quartile_skew`` = Bowley's (Q3 + Q1 − 2·Q2)/(Q3 − Q1) (undefined when IQR = 0).
 * ``reading``: |skew| < 0.5 roughly symmetric, 0.5–1 moderately, ≥ 1 strongly
   skewed (Bulmer 1979 rule of thumb; common practice); excess kurtosis > 1
@@ -25,7 +26,9 @@ Rules (each documented here and in the emitted code):
   with |quartile skew| < 0.05 reads "skew comes from a few extreme values" (our
   rule: a gamma law skewed that much has Bowley skew ≥ 0.11).
 * Headline normality test: Shapiro–Wilk when 3 ≤ n ≤ 5000; above 5000 rows
-  D'Agostino–Pearson K² on all values (Shapiro–Wilk is then also run, on a seeded
+  D'Agostino–Pearson K² on all values (computed from G1 and G2 by the formulas of
+  D'Agostino, Belanger & D'Agostino 1990, as ``scipy.stats.normaltest`` does;
+  Shapiro–Wilk is then also run, on a seeded
   random sample of 5000, and kept in ``shapiro_stat``/``shapiro_p``).  K² needs
   n ≥ 20 (scipy's kurtosis test).  Anderson–Darling A² with its 5% critical value
   0.752/(1 + 0.75/n + 2.25/n²) (Stephens 1974, the table scipy uses) for n ≥ 8,
@@ -48,8 +51,8 @@ Rules (each documented here and in the emitted code):
   spanning the 0.5th–99.5th percentiles ± 3 bandwidths; a peak counts when its
   prominence (its rise above the dip separating it from any higher peak,
   ``scipy.signal.find_peaks``) is at least 10% of the highest peak (our rule,
-  calibrated on seeded normal, exponential and two-normal mixture samples: about
-  2% false second peaks at n = 50, none from n = 100).  Needs n ≥ 20 (our
+  calibrated on seeded normal, exponential and two-normal mixture samples, 40
+  each: 2–3% false second peaks at n = 50, none seen from n = 100).  Needs n ≥ 20 (our
   rule).  The density is computed by linear binning onto the grid and a
   Gaussian-kernel convolution (values beyond the grid, at most 1%, left out): the
   curve of ``scipy.stats.gaussian_kde`` with that bandwidth, up to a constant.
@@ -58,6 +61,15 @@ Rules (each documented here and in the emitted code):
   that would give more than 200 bins (long tails, stray values such as a -999
   code), FD-width bins (≤ 200) between Tukey's far-out fences Q1 − 3·IQR and
   Q3 + 3·IQR only, and the values beyond are counted apart (shown in the title).
+* Categorical columns (nominal, boolean, ordinal not coded as numbers): counts
+  per level (ordered categoricals in their level order, others most common
+  first; top 10 + "other" in the frequency table), imbalance ratio = largest /
+  smallest level count, normalised entropy = H / ln(levels) (1 = even spread).
+* Datetime columns (tz-aware times keep their zone; periods use their start;
+  strings are parsed): first/last, span, median step and largest gap between
+  distinct times, the most common timestamp, its share and its count over the
+  median count per timestamp; counts per month (per year beyond 120 months) and
+  per weekday on wall-clock time.  Levels and dates always use all rows.
 """
 
 from __future__ import annotations
