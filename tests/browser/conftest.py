@@ -364,3 +364,52 @@ def save_doc_screenshot(page: Any, element: Any, path: Path, *, max_height: int 
     width = min(box["width"] + 16, VIEWPORT["width"] - x)
     height = min(box["height"] + 16, max_height - y, bottom - y)
     page.screenshot(path=str(path), clip={"x": x, "y": y, "width": width, "height": height})
+
+
+def save_area_screenshot(page: Any, anchor: Any, frame: Any, path: Path, *, block: str = "center") -> None:
+    """Scroll ``anchor`` into view and capture the visible part of ``frame`` around it.
+
+    Used for charts (a chart in the middle of the picture, with its tab around it).
+    """
+    anchor.evaluate(f"e => e.scrollIntoView({{block: '{block}'}})")
+    page.wait_for_timeout(150)
+    box = frame.bounding_box()
+    if box is None:
+        return
+    top, bottom = 0.0, float(VIEWPORT["height"])
+    area = page.locator(".jp-NotebookPanel:not(.lm-mod-hidden) .jp-WindowedPanel-outer, .jp-NotebookPanel-notebook")
+    if area.count():
+        outer = area.first.bounding_box()
+        if outer:
+            top, bottom = max(top, outer["y"]), min(bottom, outer["y"] + outer["height"])
+    x = max(box["x"] - 8, 0)
+    y = max(box["y"] - 8, top)
+    width = min(box["width"] + 16, VIEWPORT["width"] - x)
+    height = min(box["y"] + box["height"] + 8, bottom) - y
+    if width > 0 and height > 0:
+        page.screenshot(path=str(path), clip={"x": x, "y": y, "width": width, "height": height})
+
+
+#: The screenshots the README shows: artifact name -> docs/screenshots name.
+DOC_SCREENSHOTS = {
+    "lab-spread.png": "lab-spread.png",
+    "chart-shape.png": "shape-chart.png",
+    "chart-gaps.png": "gaps-chart.png",
+    "chart-links.png": "links-chart.png",
+    "tab-segments.png": "segments.png",
+    "code-cell.png": "code-cell.png",
+    "standalone-spread.png": "standalone-report.png",
+}
+
+
+@pytest.fixture(scope="session", autouse=True)
+def _update_doc_screenshots(artifacts: Path) -> Iterator[None]:
+    """With ``NBEDA_UPDATE_SCREENSHOTS=1``, copy the README's screenshots after the run."""
+    yield
+    if os.environ.get("NBEDA_UPDATE_SCREENSHOTS") != "1":
+        return
+    docs = ROOT / "docs" / "screenshots"
+    docs.mkdir(parents=True, exist_ok=True)
+    for src, dst in DOC_SCREENSHOTS.items():
+        if (artifacts / src).exists():
+            shutil.copy(artifacts / src, docs / dst)

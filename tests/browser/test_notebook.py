@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from conftest import TOUR, LabServer, Session, open_session, save_doc_screenshot
+from conftest import TOUR, LabServer, Session, open_session, save_area_screenshot, save_doc_screenshot
 
 import nbeda
 from nbeda.report import Report
@@ -197,6 +197,7 @@ def test_tab_shows_tables_charts_and_copies_its_code(
         timeout=TAB_TIMEOUT_MS
     )
     save_doc_screenshot(page, widget, artifacts / f"tab-{name}.png")
+    page.screenshot(path=str(artifacts / f"lab-{name}.png"))  # the whole Lab window
     status = panel.locator(".nb-status")
     assert status.count() == 0, f"{TITLES[name]} tab shows a status box: {status.first.inner_text()[:500]}"
 
@@ -228,6 +229,7 @@ def test_tab_shows_tables_charts_and_copies_its_code(
         box = charts.nth(i).bounding_box()
         assert box is not None and box["width"] > 0 and box["height"] > 0, f"{TITLES[name]} chart {i}: {box}"
     assert panel.locator(".nb-chart .nb-flag").count() == 0, panel.locator(".nb-chart .nb-flag").first.inner_text()
+    save_area_screenshot(page, charts.first, widget, artifacts / f"chart-{name}.png")
 
     # Code panel: the code shown is the library's code; Copy puts exactly it on the clipboard.
     want = expected["widget"].code(name)
@@ -242,7 +244,9 @@ def test_tab_shows_tables_charts_and_copies_its_code(
     assert page.evaluate("navigator.clipboard.readText()") == want
 
 
-def test_code_magic_puts_exact_code_in_new_cell_below(tour: Session, lab_server: LabServer, expected: dict[str, Any]) -> None:
+def test_code_magic_puts_exact_code_in_new_cell_below(
+    tour: Session, lab_server: LabServer, expected: dict[str, Any], artifacts: Path
+) -> None:
     page = tour.page
     magic = "%eda df --code spread"
     last = page.locator(".jp-Notebook .jp-Cell").last
@@ -258,6 +262,8 @@ def test_code_magic_puts_exact_code_in_new_cell_below(tour: Session, lab_server:
         "n => document.querySelectorAll('.jp-Notebook .jp-Cell').length > n", arg=n_cells, timeout=120_000
     )
     _wait_run_finished(page, timeout=120_000)
+    magic_cell = page.locator(".jp-Notebook .jp-Cell").nth(n_cells - 1)
+    save_area_screenshot(page, magic_cell, page.locator(".jp-Notebook").first, artifacts / "code-cell.png", block="start")
     want = expected["plain"].code("spread")
 
     def has_it(nb: dict[str, Any]) -> bool:
