@@ -544,14 +544,30 @@ class _Ranked:
         words = np.bincount(blk, weights=np.ldexp(1.0, (dp & 31).astype(np.int32)), minlength=nb)
         return fblk, words.astype(np.uint32), int(dp.size)
 
-    def reranked(self, fblk: np.ndarray, words: np.ndarray) -> np.ndarray:
-        """Average ranks in row order after the drop (0 for rows missing in this column)."""
-        c = fblk[self.blk_s] + np.bitwise_count(words[self.blk_s] & self.low_s)
+    def reranked(self, fblk: np.ndarray, words: np.ndarray, sl: slice, out: np.ndarray,
+                 tmp: np.ndarray, out2: np.ndarray) -> np.ndarray:
+        """Average ranks of rows ``sl`` (row order) after the drop; 0 for rows missing here.
+
+        Works on a slice of rows into preallocated buffers so the temporaries stay in cache.
+        """
+        m = out.shape[0] if sl.stop - sl.start >= out.shape[0] else sl.stop - sl.start
+        o, t = out[:m], tmp[:m]
+        blk = self.blk_s[sl]
+        np.take(fblk, blk, out=o)
+        np.take(words, blk, out=t)
+        np.bitwise_and(t, self.low_s[sl], out=t)
+        o += np.bitwise_count(t)
         if self.blk_e is not None:
-            c += fblk[self.blk_e] + np.bitwise_count(words[self.blk_e] & self.low_e)
-            c *= 0.5
-        np.subtract(self.rank, c, out=c)
-        return c
+            o2 = out2[:m]
+            blk = self.blk_e[sl]
+            np.take(fblk, blk, out=o2)
+            np.take(words, blk, out=t)
+            np.bitwise_and(t, self.low_e[sl], out=t)
+            o2 += np.bitwise_count(t)
+            o += o2
+            o *= 0.5
+        np.subtract(self.rank[sl], o, out=o)
+        return o
 
     def tie_term(self, fblk: np.ndarray, words: np.ndarray) -> float:
         """Σ (t³ − t)/12 over tie groups after the drop (t = rows left in the group)."""
@@ -564,6 +580,10 @@ class _Ranked:
 
         t = self.lens - (f(e) - f(s))
         return float(np.sum(t**3 - t)) / 12.0
+
+
+#: Rows per slice in the fast Spearman's pair loop (temporaries stay in cache).
+_CHUNK = 8192  # below the size where BLAS dot goes multi-threaded
 
 
 def fast_spearman(x: np.ndarray, pairs: list[tuple[int, int]] | None = None,
@@ -592,10 +612,16 @@ def fast_spearman(x: np.ndarray, pairs: list[tuple[int, int]] | None = None,
         if m < 2:
             return
         fb, wb, _ = cb.tables(missing[a])
-        ra = ca.reranked(fa, wa)
-        rb = cb.reranked(fb, wb)
+        size = min(n, _CHUNK)
+        bufs = [np.empty(size) for _ in range(4)] + [np.empty(size, dtype=np.uint32)]
+        dot = 0.0
+        for start in range(0, n, _CHUNK):
+            sl = slice(start, min(n, start + _CHUNK))
+            ra = ca.reranked(fa, wa, sl, bufs[0], bufs[4], bufs[1])
+            rb = cb.reranked(fb, wb, sl, bufs[2], bufs[4], bufs[3])
+            dot += float(np.dot(ra, rb))
         mu = 0.5 * (m + 1)
-        cross = float(np.dot(ra, rb)) - m * mu * mu
+        cross = dot - m * mu * mu
         base = (float(m) ** 3 - m) / 12.0
         va = base - ca.tie_term(fa, wa)
         vb = base - cb.tie_term(fb, wb)
