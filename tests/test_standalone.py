@@ -16,12 +16,13 @@ from html.parser import HTMLParser
 import numpy as np
 import pandas as pd
 import pytest
-from helpers import SCRIPT, assert_unchanged, snapshot
+from helpers import SCRIPT, assert_unchanged, hostile_frames, snapshot
 
 import nbeda.report as report_module
 from nbeda.report import Report
 from nbeda.sections import SECTIONS, TITLES, builder
 from nbeda.standalone import offline_svg, report_html
+from nbeda.widget import ReportWidget
 
 
 class Outline(HTMLParser):
@@ -199,3 +200,20 @@ def test_offline_svg_drops_namespaces_and_prefixes_ids():
     assert "http" not in out
     assert 'id="p7-clip1"' in out and "url(#p7-clip1)" in out and 'href="#p7-clip1"' in out
     assert 'id="clip1"' not in out
+
+
+_HOSTILE = {k: v for k, v in hostile_frames().items() if k != "two_thousand_columns"}  # the wide one: contract test
+
+
+@pytest.mark.parametrize("name", sorted(_HOSTILE))
+def test_hostile_frames_give_a_whole_page_and_widget(name):
+    """Every hostile frame: seven panels, nothing raw from the data, the frame untouched."""
+    frame = _HOSTILE[name]
+    snap = snapshot(frame)
+    page = report_html(Report(frame))
+    assert page.count("class='nb-panel'") == 7
+    assert "<script" not in page and "http://" not in page and "https://" not in page
+    w = ReportWidget(Report(frame))
+    assert w.state["roles"] in ("done", "error")
+    assert "<script" not in "".join(c.value for c in w.contents["roles"].children if hasattr(c, "value"))
+    assert_unchanged(frame, snap)
