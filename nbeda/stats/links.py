@@ -955,8 +955,9 @@ def trend_warnings(x, y, labels, x_name, y_name):
         pq = 2.0 * stats.t.sf(abs(tq), n - 3)
         gain = (sse - sse2) / syy
         if pq < 0.01 and gain >= 0.01:
+            ptxt = f"p = {pq:.2g}" if pq > 0 else "p < 1e-300"
             out.append(f"The residuals curve: a quadratic term in {x_name} is significant "
-                       f"(p = {pq:.2g}) and lifts R² by {gain:.2f}; a straight line misses a bend.")
+                       f"({ptxt}) and lifts R² by {gain:.2f}; a straight line misses a bend.")
     return out
 
 
