@@ -53,7 +53,8 @@ Rules (each documented here and in the emitted code):
   ``scipy.signal.find_peaks``) is at least 10% of the highest peak (our rule,
   calibrated on seeded normal, exponential and two-normal mixture samples, 40
   each: 2–3% false second peaks at n = 50, none seen from n = 100).  Needs n ≥ 20 (our
-  rule).  The density is computed by linear binning onto the grid and a
+  rule).  The bandwidth is at least one grid step (finer cannot be resolved).
+  The density is computed by linear binning onto the grid and a
   Gaussian-kernel convolution (values beyond the grid, at most 1%, left out): the
   curve of ``scipy.stats.gaussian_kde`` with that bandwidth, up to a constant.
 * Histogram: Freedman–Diaconis bins (width 2·IQR·n^(−1/3), edges equal to
@@ -214,6 +215,9 @@ def shape_modes(ys, grid=512, prominence=0.10):
         return 1
     lo, hi = q005 - 3 * h, q995 + 3 * h
     step = (hi - lo) / (grid - 1)
+    if not step > 0:
+        return 1
+    h = max(h, step)  # the grid cannot resolve a bandwidth finer than one step
     # Linear binning onto the grid (values beyond it, at most 1% of them, are left out), then a
     # Gaussian kernel convolution: the kernel density up to a constant factor, which does not move peaks.
     pos = (ys - lo) / step
