@@ -244,6 +244,66 @@ def test_tab_shows_tables_charts_and_copies_its_code(
     assert page.evaluate("navigator.clipboard.readText()") == want
 
 
+def _clipboard_soon(page: Any, want: str, timeout_ms: int = 5_000) -> str:
+    """The clipboard text, polled until it equals ``want`` (copying is asynchronous)."""
+    got = ""
+    for _ in range(max(timeout_ms // 100, 1)):
+        got = page.evaluate("navigator.clipboard.readText()")
+        if got == want:
+            break
+        page.wait_for_timeout(100)
+    return str(got)
+
+
+def test_copy_falls_back_without_clipboard_permission(tour: Session, expected: dict[str, Any]) -> None:
+    """The Copy button still copies when the clipboard API refuses (no permission, e.g. over
+    plain http on another host): simulated by making ``navigator.clipboard.writeText``
+    reject, so the button's ``execCommand('copy')`` fallback must do the work."""
+    page = tour.page
+    widget = _widget(page)
+    widget.locator(".lm-TabBar-tab").filter(has_text="Spread").first.click()
+    code_panel = _visible_panel(widget).locator(".nb-codepanel[data-tab='spread']")
+    code_panel.wait_for(timeout=TAB_TIMEOUT_MS)
+    page.evaluate("navigator.clipboard.writeText('')")
+    page.evaluate(
+        "() => { navigator.clipboard.writeText = () => Promise.reject(new DOMException('refused', 'NotAllowedError')); }"
+    )
+    try:
+        copy = code_panel.locator("button.nb-copy")
+        copy.click()
+        page.wait_for_function("b => b.textContent !== 'Copy'", arg=copy.element_handle(), timeout=10_000)
+        assert copy.text_content() == "Copied"
+    finally:
+        page.evaluate("() => { delete navigator.clipboard.writeText; }")  # back to the real method
+    assert page.evaluate("navigator.clipboard.readText()") == expected["widget"].code("spread")
+
+
+def test_insert_below_inserts_or_copies_instead(tour: Session, expected: dict[str, Any]) -> None:
+    """"Insert below" needs the notebook application; JupyterLab does not expose it to
+    output HTML unless started with exposeAppInBrowser, so here it must degrade: the
+    code goes to the clipboard instead, the button says how to paste it, and the
+    ``%eda df --code`` hint is emphasised — no error, no stray cell."""
+    page = tour.page
+    widget = _widget(page)
+    widget.locator(".lm-TabBar-tab").filter(has_text="Roles").first.click()
+    code_panel = _visible_panel(widget).locator(".nb-codepanel[data-tab='roles']")
+    code_panel.wait_for(timeout=TAB_TIMEOUT_MS)
+    n_cells = page.locator(".jp-Notebook .jp-Cell").count()
+    page.evaluate("navigator.clipboard.writeText('')")
+    button = code_panel.locator("button.nb-insert")
+    button.click()
+    page.wait_for_function("b => b.textContent !== 'Insert below'", arg=button.element_handle(), timeout=10_000)
+    text = button.text_content()
+    if text == "Inserted":
+        assert page.locator(".jp-Notebook .jp-Cell").count() == n_cells + 1
+    else:
+        assert (text or "").startswith("Copied instead"), text
+        assert _clipboard_soon(page, expected["widget"].code("roles")) == expected["widget"].code("roles")
+        assert "nb-hint-strong" in (code_panel.locator(".nb-hint").get_attribute("class") or "")
+        assert "%eda df --code roles" in code_panel.locator(".nb-hint").inner_text()
+        assert page.locator(".jp-Notebook .jp-Cell").count() == n_cells
+
+
 def test_code_magic_puts_exact_code_in_new_cell_below(
     tour: Session, lab_server: LabServer, expected: dict[str, Any], artifacts: Path
 ) -> None:
