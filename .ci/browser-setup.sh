@@ -1,8 +1,8 @@
-#!/usr/bin/env bash
+#!/bin/sh
 # Installs Debian's Chromium for the browser test layer (tests/browser/) when it is missing.
-# Playwright drives this system browser through executable_path; no browser is ever downloaded
-# by Playwright itself.
-set -euo pipefail
+# Playwright drives this system browser through executable_path; no browser is ever
+# downloaded by Playwright itself.  POSIX sh (the README runs it with `sh`).
+set -eu
 
 if [ -x /usr/bin/chromium ]; then
     echo "browser-setup: /usr/bin/chromium present ($(/usr/bin/chromium --version 2>/dev/null || echo 'version unknown'))"
@@ -15,7 +15,8 @@ if [ "$(id -u)" -ne 0 ]; then
 fi
 
 echo "browser-setup: installing Debian's chromium (about 80 s)"
-export DEBIAN_FRONTEND=noninteractive
+DEBIAN_FRONTEND=noninteractive
+export DEBIAN_FRONTEND
 $SUDO apt-get update
 $SUDO apt-get install -y chromium
 

@@ -47,6 +47,7 @@ CHROMIUM_ARGS = [
     "--disable-component-update",
     "--disable-sync",
     "--no-first-run",
+    "--disable-dev-shm-usage",  # containers often have a tiny /dev/shm
     "--host-resolver-rules=MAP * ~NOTFOUND, EXCLUDE localhost, EXCLUDE 127.0.0.1",
 ]
 
