@@ -6,9 +6,10 @@ exception type); a tab whose section has not been released yet says so.  Every t
 ends with its code panel (Copy, Insert below, and the ``%eda df --code TAB`` hint).
 
 Charts are SVG drawn in the kernel by vl-convert (offline everywhere) unless
-``nbeda.options.charts == "interactive"`` (see :mod:`nbeda.options`).  The
-display also carries a ``text/html`` fallback with every tab computed so far,
-shown by viewers that have no widget state (nbconvert, nbviewer, plain HTML views).
+``nbeda.options.charts == "interactive"`` (see :mod:`nbeda.options`); the
+user's global altair renderer is never touched.  The display also carries a
+static copy of every tab computed so far, for notebooks read without a kernel
+(see :meth:`ReportWidget._ipython_display_`).
 """
 
 from __future__ import annotations
@@ -148,6 +149,17 @@ class ReportWidget(widgets.VBox):  # type: ignore[misc]
         box.children = [widgets.HTML(_STYLE + status_html("computing", title))]
         try:
             result = self.report.section(name)
+        except KeyboardInterrupt:  # the user stopped the kernel: leave the tab ready for another try
+            self.state[name] = "pending"
+            box.children = [
+                widgets.HTML(
+                    _STYLE
+                    + status_html(
+                        "pending", title, message=f"{title} was interrupted; open another tab and come back to retry."
+                    )
+                )
+            ]
+            raise
         except NotImplementedError as exc:
             self.errors[name] = exc
             self.state[name] = "unavailable"

@@ -292,3 +292,23 @@ def test_accessor_and_report_give_the_widget(small_frame):
     assert isinstance(w, ReportWidget) and w.selected == "spread"
     with pytest.raises(KeyError):
         small_frame.eda(tab="nowhere")
+
+
+def test_interrupted_tab_can_be_retried(small_frame, monkeypatch):
+    real = builder("spread")
+    calls = []
+
+    def interrupt_once(ctx, **kw):
+        calls.append(1)
+        if len(calls) == 1:
+            raise KeyboardInterrupt
+        return real(ctx, **kw)
+
+    monkeypatch.setattr(report_module, "builder", lambda name: interrupt_once if name == "spread" else builder(name))
+    w = ReportWidget(Report(small_frame))
+    with pytest.raises(KeyboardInterrupt):
+        w.select("spread")
+    assert w.state["spread"] == "pending" and "was interrupted" in tab_text(w, "spread")
+    w.select("roles")
+    w.select("spread")
+    assert w.state["spread"] == "done" and len(calls) == 2
