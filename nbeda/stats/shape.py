@@ -209,6 +209,8 @@ def shape_modes(ys, grid=512, prominence=0.10):
     spread = min(sd, (q75 - q25) / 1.34) if q75 > q25 else sd
     h = 0.9 * spread * n ** (-0.2)
     levels = np.unique(ys)
+    if levels.size < 2:
+        return 1
     if levels.size <= 20:
         h = max(h, np.diff(levels).min())  # integer-like scales: one bump per level is not a mode
     if not (sd > 0 and h > 0):
@@ -296,14 +298,18 @@ def shape_of(x, seed=0, sample_max=5000, small_skew=0.5):
     else:
         ys = y
     # Normality tests.
+    # Both tests are location/scale-free: run them on the sample centred and scaled to [-1, 1]
+    # (values far below 1 would underflow when squared or trip scipy's "range zero" check).
+    c = ys - np.median(ys)
+    cs = c / np.abs(c).max() if ys.min() < ys.max() else c
     if ys.min() < ys.max():
-        w = stats.shapiro(ys)
+        w = stats.shapiro(cs)
         row["shapiro_stat"], row["shapiro_p"] = float(w.statistic), float(w.pvalue)
     if n >= 20:
         row["dagostino_stat"], row["dagostino_p"] = dagostino_k2(g1, g2, n)  # = scipy.stats.normaltest
     if ys.size >= 8 and ys.min() < ys.max():
         m = ys.size
-        row["anderson_stat"] = float(stats.anderson(ys, method="interpolate").statistic)
+        row["anderson_stat"] = float(stats.anderson(cs, method="interpolate").statistic)
         row["anderson_crit_5"] = float(np.round(0.752 / (1.0 + 0.75 / m + 2.25 / m / m), 3))
     if n <= 5000:
         row["normality_test"] = "Shapiro-Wilk"
@@ -312,7 +318,7 @@ def shape_of(x, seed=0, sample_max=5000, small_skew=0.5):
         row["normality_test"] = "D'Agostino-Pearson K2"
         row["normality_stat"], row["normality_p"] = row["dagostino_stat"], row["dagostino_p"]
     # Transforms (only when |skew| >= small_skew and n >= 8): lambda on the sample, skew after on all values.
-    if g1 == g1 and abs(g1) >= small_skew and n >= 8:
+    if g1 == g1 and abs(g1) >= small_skew and n >= 8 and ys.min() < ys.max():
         with np.errstate(all="ignore"), warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always")
             if y.min() > 0:
@@ -407,7 +413,10 @@ def fd_histogram(x, max_bins=200):
         edges = np.linspace(lo, hi, nbins + 1) if hi > lo else np.array([lo - 0.5, hi + 0.5])
         below, above = int((y < edges[0]).sum()), int((y > edges[-1]).sum())
     else:
-        edges = np.histogram_bin_edges(y, bins=rule)
+        try:
+            edges = np.histogram_bin_edges(y, bins=rule)
+        except ValueError:  # range too small for float64 to split: a single bin
+            edges = np.array([lo, hi])
     counts = np.histogram(y[(y >= edges[0]) & (y <= edges[-1])], bins=edges)[0]
     edges = np.ldexp(edges, e)
     frame = pd.DataFrame({"bin_start": edges[:-1], "bin_end": edges[1:], "count": counts.astype("int64")})
