@@ -557,3 +557,31 @@ def test_shape_of_never_warns_and_agrees_with_scipy_on_generated_data():
 
     assert hyp is not None
     check()
+
+
+def test_awkward_magnitudes_corpus_is_quiet():
+    """Seeded corpus of awkward arrays (Cauchy tails, 1e250 strays, subnormals, 1e6 + 1e-9 noise,
+    +/-1e308, ties): no exception and no warning from any of them."""
+    rng = np.random.default_rng(7)
+    gens = [
+        lambda n: rng.lognormal(0, 3, size=n),
+        lambda n: rng.standard_cauchy(n),
+        lambda n: np.r_[rng.normal(size=n - 1), 1e250],
+        lambda n: rng.exponential(size=n) * 1e-300,
+        lambda n: rng.pareto(0.5, n) + 1e-300,
+        lambda n: np.r_[np.zeros(n - 2), 1, 2],
+        lambda n: -rng.lognormal(0, 2, n),
+        lambda n: rng.choice([1e-310, 2e-310, 3e-310], n),
+        lambda n: np.r_[np.full(n - 1, 1e308), -1e308],
+        lambda n: 1e6 + rng.normal(size=n) * 1e-9,
+        lambda n: np.r_[rng.normal(size=n - 1) * 1e-200, 1e200],
+    ]
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        for g in gens:
+            for n in (3, 8, 21, 300, 6000):
+                x = g(n)
+                row = shape_of(x, seed=n)
+                bins, below, above = fd_histogram(x)
+                assert row["n"] == np.isfinite(x).sum()
+                assert int(bins["count"].sum()) + below + above == row["n"]
