@@ -9,7 +9,7 @@ from __future__ import annotations
 from typing import Any
 
 import pytest
-from conftest import LabServer, open_session
+from .harness import LabServer, open_session
 
 pytestmark = pytest.mark.browser
 

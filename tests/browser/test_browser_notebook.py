@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from conftest import TOUR, LabServer, Session, open_session, save_area_screenshot, save_doc_screenshot
+from .harness import TOUR, LabServer, Session, open_session, save_area_screenshot, save_doc_screenshot
 
 import nbeda
 from nbeda.report import Report

@@ -14,7 +14,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from conftest import Session, open_session, save_doc_screenshot
+from .harness import Session, open_session, save_doc_screenshot
 
 import nbeda
 from nbeda.report import Report
