@@ -303,7 +303,14 @@ class ShapeResult(SectionResult):
             chart = self.overview_chart() if i == -1 else self._chart_at(i)
         except Exception as exc:  # a chart failure never hides the numbers
             return f"<div class='nb-flag'>chart unavailable: {esc(type(exc).__name__)}: {esc(exc)}</div>"
-        return "" if chart is None else chart_html(chart)
+        if chart is None:
+            return ""
+        try:  # unique SVG ids, so several charts can share one page
+            from nbeda.standalone import offline_svg
+        except ImportError:
+            return chart_html(chart)
+        self._draws = getattr(self, "_draws", 0) + 1
+        return offline_svg(chart_html(chart), f"shape{id(self) % 100000}-{self._draws}")
 
     def _chart_at(self, i: int) -> Any:
         if i in self.numeric_positions:
