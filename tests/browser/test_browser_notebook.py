@@ -343,6 +343,44 @@ def test_code_magic_puts_exact_code_in_new_cell_below(
     assert sources[first + 1] == want
 
 
+def _run_new_cell(page: Any, source: str) -> int:
+    """Add a code cell at the end, type ``source``, run it; the new cell's index."""
+    last = page.locator(".jp-Notebook .jp-Cell").last
+    last.locator(".jp-InputPrompt").first.click()
+    page.keyboard.press("Escape")
+    page.keyboard.press("b")
+    page.keyboard.press("Enter")
+    page.keyboard.type(source)
+    index = page.locator(".jp-Notebook .jp-Cell").count() - 1
+    page.keyboard.press("Shift+Enter")
+    return index
+
+
+def test_interactive_charts_draw_offline(tour: Session, artifacts: Path) -> None:
+    """Issue 8 item 5: ``--charts interactive`` draws Vega charts in the widget with the
+    network blocked (the Vega bundle is inline in each chart's frame)."""
+    page = tour.page
+    index = _run_new_cell(page, "%eda df --charts interactive --tab spread")
+    cell = page.locator(".jp-Notebook .jp-Cell").nth(index)
+    widget = cell.locator(".nbeda-live").first
+    widget.wait_for(timeout=TAB_TIMEOUT_MS)
+    panel = _visible_panel(widget)
+    panel.locator(".nb-codepanel[data-tab='spread']").wait_for(timeout=TAB_TIMEOUT_MS)
+    frames = panel.locator("iframe.nb-iframe")
+    assert frames.count() >= 1, "no interactive chart frame"
+    assert panel.locator(".nb-chart > svg").count() == 0  # not the static drawing
+    for i in range(frames.count()):
+        frames.nth(i).scroll_into_view_if_needed()
+        inner = frames.nth(i).content_frame
+        drawn = inner.locator(".vega-embed canvas, .vega-embed svg.marks").first
+        drawn.wait_for(timeout=60_000)
+        box = drawn.bounding_box()
+        assert box is not None and box["width"] > 0 and box["height"] > 0, box
+        outer = frames.nth(i).bounding_box()
+        assert outer is not None and outer["height"] >= box["height"] * 0.5  # the frame sized itself
+    save_area_screenshot(page, frames.first, widget, artifacts / "interactive-spread.png")
+
+
 def test_saved_notebook_keeps_static_report(tour: Session) -> None:
     """Issue 8 item 2: the widget's output also carries HTML that shows without a kernel."""
     nb = tour.saved
