@@ -346,6 +346,12 @@ def test_levels_table(demo_shape, demo_frame):
     assert list(counts["level"]) == ["A", "B", "C", "D"]  # kept in level order, not by count
     assert counts["count"].sum() == demo_frame["soil_grade"].notna().sum()
     assert "Levels (categorical columns)" in demo_shape.tables()
+    # the long frequency table shown in the tab: same counts, per column, levels kept in order
+    freq = demo_shape.frequencies
+    assert list(freq.loc["soil_grade", "level"]) == ["A", "B", "C", "D"]
+    sums = freq.groupby(level="column", sort=False)["count"].sum()
+    assert sums.to_dict() == lv["n"].to_dict()
+    assert list(freq.loc["site", "count"]) == vc.tolist()
 
 
 def test_top_k_plus_other():

@@ -23,7 +23,7 @@ from nbeda.stats.shape import (
     date_summary,
     fd_histogram,
     level_counts,
-    level_summary,
+    level_tables,
     quantile_points,
     sample_rows,
     shape_code,
@@ -58,6 +58,7 @@ class ShapeResult(SectionResult):
         table: pd.DataFrame,
         *,
         levels: pd.DataFrame,
+        frequencies: pd.DataFrame,
         dates: pd.DataFrame,
         level_positions: list[int],
         date_positions: list[int],
@@ -66,6 +67,8 @@ class ShapeResult(SectionResult):
         super().__init__(ctx, table, **kw)
         #: per categorical column: levels, top share, imbalance ratio, normalised entropy
         self.levels = levels
+        #: long table of level frequencies (top 10 + "other"; ordinal levels all, in order), index ``column``
+        self.frequencies = frequencies
         #: per datetime column: first/last, span, median step, largest gap, top timestamp
         self.dates = dates
         self.numeric_positions = ctx.numeric_positions()
@@ -78,6 +81,7 @@ class ShapeResult(SectionResult):
         out = {self.title: self.table}
         if len(self.levels):
             out["Levels (categorical columns)"] = self.levels
+            out["Level frequencies (top 10 + other; ordinal levels in order)"] = self.frequencies
         if len(self.dates):
             out["Dates (datetime columns)"] = self.dates
         return out
@@ -344,7 +348,7 @@ def build(ctx: Context, **_: Any) -> ShapeResult:
     table = compute_shape(ctx)
     level_positions = categorical_positions(ctx)
     date_positions = ctx.with_role("datetime")
-    levels = level_summary(ctx, level_positions)
+    levels, frequencies = level_tables(ctx, level_positions)
     dates = date_summary(ctx, date_positions)
 
     notes = [
@@ -395,6 +399,7 @@ def build(ctx: Context, **_: Any) -> ShapeResult:
         cautions=list(CAUTIONS),
         flags=flags,
         levels=levels,
+        frequencies=frequencies,
         dates=dates,
         level_positions=level_positions,
         date_positions=date_positions,

@@ -98,6 +98,7 @@ __all__ = [
     "compute_shape",
     "sample_rows",
     "level_summary",
+    "level_tables",
     "level_counts_of",
     "level_row",
     "date_row",
@@ -512,9 +513,9 @@ def level_counts_of(s):
     return counts.iloc[order], False
 
 
-def level_row(s):
+def level_row(s, counted=None):
     """Levels, top level and its share, imbalance ratio (largest/smallest) and normalised entropy."""
-    counts, ordered = level_counts_of(s)
+    counts, ordered = level_counts_of(s) if counted is None else counted
     c = counts.to_numpy(dtype="float64")
     n = float(c.sum())
     used = c[c > 0]
@@ -535,13 +536,35 @@ LEVEL_COLUMNS = ["n", "levels", "ordered", "top", "top_share", "imbalance_ratio"
 
 def level_summary(ctx: Context, positions: list[int]) -> pd.DataFrame:
     """Per categorical column: levels, top level and share, imbalance ratio, normalised entropy."""
-    rows = [level_row(ctx.series(i)) for i in positions]
-    return pd.DataFrame(rows, index=ctx.index_for(positions), columns=LEVEL_COLUMNS)
+    return level_tables(ctx, positions)[0]
+
+
+def level_tables(ctx: Context, positions: list[int], top: int = 10) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The per-column level summary and the long frequency table (top ``top`` + "other"), one count each."""
+    rows, freqs = [], []
+    for i in positions:
+        counted = level_counts_of(ctx.series(i))
+        rows.append(level_row(ctx.series(i), counted))
+        f = _frequency_table(*counted, top=top)
+        f.index = pd.Index([ctx.labels[i]] * len(f), name="column", tupleize_cols=False, dtype=object)
+        freqs.append(f)
+    summary = pd.DataFrame(rows, index=ctx.index_for(positions), columns=LEVEL_COLUMNS)
+    if freqs:
+        frequencies = pd.concat(freqs)
+    else:
+        frequencies = pd.DataFrame(
+            {"level": pd.Series(dtype=object), "count": pd.Series(dtype="int64"), "share": pd.Series(dtype="float64")},
+            index=pd.Index([], name="column", dtype=object),
+        )
+    return summary, frequencies
 
 
 def level_counts(ctx: Context, i: int, top: int = 10) -> pd.DataFrame:
     """Frequency table of one column: top ``top`` levels + "other" (ordered levels all kept in order)."""
-    counts, ordered = level_counts_of(ctx.series(i))
+    return _frequency_table(*level_counts_of(ctx.series(i)), top=top)
+
+
+def _frequency_table(counts: pd.Series, ordered: bool, top: int = 10) -> pd.DataFrame:
     n = int(counts.sum())
     labels = [str(v) for v in counts.index]
     vals = counts.to_numpy(dtype="int64")
