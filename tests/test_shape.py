@@ -461,6 +461,7 @@ def test_code_rebuilds_levels_and_dates(demo_frame, demo_shape):
     ns = run_code(demo_shape.code(), demo_frame)
     assert_same_table(ns["shape_levels"], demo_shape.levels)
     assert_same_table(ns["shape_dates"], demo_shape.dates)
+    assert_same_table(ns["shape_frequencies"], demo_shape.frequencies)
 
 
 @pytest.mark.parametrize(
@@ -476,6 +477,7 @@ def test_code_rebuilds_levels_and_dates_on_hostile_frames(key):
     assert_same_table(ns["shape"], res.table)
     if len(res.levels):
         assert_same_table(ns["shape_levels"], res.levels)
+        assert_same_table(ns["shape_frequencies"], res.frequencies)
     if len(res.dates):
         assert_same_table(ns["shape_dates"], res.dates)
     assert_unchanged(frame, snap)

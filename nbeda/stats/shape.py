@@ -99,6 +99,7 @@ __all__ = [
     "sample_rows",
     "level_summary",
     "level_tables",
+    "frequency_table",
     "level_counts_of",
     "level_row",
     "date_row",
@@ -545,7 +546,7 @@ def level_tables(ctx: Context, positions: list[int], top: int = 10) -> tuple[pd.
     for i in positions:
         counted = level_counts_of(ctx.series(i))
         rows.append(level_row(ctx.series(i), counted))
-        f = _frequency_table(*counted, top=top)
+        f = frequency_table(*counted, top=top)
         f.index = pd.Index([ctx.labels[i]] * len(f), name="column", tupleize_cols=False, dtype=object)
         freqs.append(f)
     summary = pd.DataFrame(rows, index=ctx.index_for(positions), columns=LEVEL_COLUMNS)
@@ -561,10 +562,11 @@ def level_tables(ctx: Context, positions: list[int], top: int = 10) -> tuple[pd.
 
 def level_counts(ctx: Context, i: int, top: int = 10) -> pd.DataFrame:
     """Frequency table of one column: top ``top`` levels + "other" (ordered levels all kept in order)."""
-    return _frequency_table(*level_counts_of(ctx.series(i)), top=top)
+    return frequency_table(*level_counts_of(ctx.series(i)), top=top)
 
 
-def _frequency_table(counts: pd.Series, ordered: bool, top: int = 10) -> pd.DataFrame:
+def frequency_table(counts, ordered, top=10):
+    """Top `top` levels + "other" (ordered levels are all kept, in their order), with shares."""
     n = int(counts.sum())
     labels = [str(v) for v in counts.index]
     vals = counts.to_numpy(dtype="int64")
@@ -718,6 +720,14 @@ shape = pd.DataFrame(
             f"level_positions = {levels!r}\n"
             f"shape_levels = pd.DataFrame([level_row({frame_name}.iloc[:, i]) for i in level_positions],\n"
             f"    index={index.format(f=frame_name, v='level_positions')}, columns={LEVEL_COLUMNS!r})\n",
+            "# Level frequencies, one block per column (top 10 + \"other\"; ordinal levels all, in order).",
+            function_source(frequency_table),
+            "parts = []\n"
+            "for i in level_positions:\n"
+            f"    f = frequency_table(*level_counts_of({frame_name}.iloc[:, i]))\n"
+            f"    f.index = pd.Index([{frame_name}.columns[i]] * len(f), name=\"column\", tupleize_cols=False, dtype=object)\n"
+            "    parts.append(f)\n"
+            "shape_frequencies = pd.concat(parts)\n",
         ]
     if dates:
         blocks += [
