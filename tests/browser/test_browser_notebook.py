@@ -134,6 +134,15 @@ def tour(browser: Any, lab_server: LabServer, artifacts: Path) -> Iterator[Sessi
         s.close()
 
 
+@pytest.fixture(autouse=True)
+def _each_test_stays_offline_and_error_free(tour: Session) -> Iterator[None]:
+    """Blame the test that made an outside request or logged a console error."""
+    blocked, errors = len(tour.guard.blocked), len(tour.console.errors)
+    yield
+    assert not tour.guard.blocked[blocked:], f"requests outside 127.0.0.1: {tour.guard.blocked[blocked:]}"
+    assert not tour.console.errors[errors:], "console errors:\n" + "\n".join(tour.console.errors[errors:])
+
+
 def _widget(page: Any) -> Any:
     return page.locator(".nbeda-live").first
 

@@ -51,6 +51,15 @@ def standalone(browser: Any, report_file: Path) -> Iterator[Session]:
         s.close()
 
 
+@pytest.fixture(autouse=True)
+def _each_test_stays_offline_and_error_free(standalone: Session) -> Iterator[None]:
+    """Blame the test that made an outside request or logged a console error."""
+    blocked, errors = len(standalone.guard.blocked), len(standalone.console.errors)
+    yield
+    assert not standalone.guard.blocked[blocked:], f"requests outside 127.0.0.1: {standalone.guard.blocked[blocked:]}"
+    assert not standalone.console.errors[errors:], "console errors:\n" + "\n".join(standalone.console.errors[errors:])
+
+
 def _check_tab(page: Any, name: str, report: Report) -> Any:
     page.locator("label.nb-tablabel").get_by_text(TITLES[name], exact=True).click()
     panel = page.locator(f"section.nb-panel[data-tab='{name}']")
