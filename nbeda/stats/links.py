@@ -469,12 +469,15 @@ def _order_present(x: np.ndarray) -> np.ndarray:
     sv = v[local]
     bad = np.flatnonzero(sv[1:] < sv[:-1])
     if bad.size:  # distinct values sharing the kept high bits: sort those runs by full value
-        top = key >> np.uint64(bits)
-        run = np.cumsum(np.r_[True, top[1:] != top[:-1]])
-        flag = np.zeros(int(run[-1]) + 1, dtype=bool)
-        flag[run[bad]] = True
-        sel = np.flatnonzero(flag[run])
-        local[sel] = local[sel][np.lexsort((v[local[sel]], run[sel]))]
+        top = key >> np.uint64(bits)  # sorted, so each run is found by binary search
+        lo = np.searchsorted(top, top[bad], side="left")
+        hi = np.searchsorted(top, top[bad], side="right")
+        lo, first = np.unique(lo, return_index=True)
+        hi = hi[first]
+        lens = hi - lo
+        sel = np.repeat(lo - np.cumsum(np.r_[0, lens[:-1]]), lens) + np.arange(lens.sum())
+        run = np.repeat(np.arange(lo.size), lens)
+        local[sel] = local[sel][np.lexsort((v[local[sel]], run))]
     return idx[local]
 
 
@@ -544,10 +547,11 @@ class _Ranked:
             dp = dp + (np.arange(dp.size) - np.searchsorted(dp, dp, side="left"))
         nb = (self.n >> 5) + 2
         blk = dp >> 5
-        fblk = np.zeros(nb, dtype="float64")
+        fblk = np.zeros(nb, dtype=np.uint64)
         np.cumsum(np.bincount(blk, minlength=nb)[:-1], out=fblk[1:])
         words = np.bincount(blk, weights=np.ldexp(1.0, (dp & 31).astype(np.int32)), minlength=nb)
-        return fblk, words.astype(np.uint32), int(dp.size)
+        table = (fblk << np.uint64(32)) | words.astype(np.uint64)  # prefix count | bit mask
+        return table, words.astype(np.uint32), int(dp.size)
 
     def reranked(self, fblk: np.ndarray, words: np.ndarray, sl: slice, out: np.ndarray,
                  tmp: np.ndarray, out2: np.ndarray) -> np.ndarray:
@@ -557,21 +561,15 @@ class _Ranked:
         """
         m = out.shape[0] if sl.stop - sl.start >= out.shape[0] else sl.stop - sl.start
         o, t = out[:m], tmp[:m]
-        blk = self.blk_s[sl]
-        np.take(fblk, blk, out=o)
-        np.take(words, blk, out=t)
-        np.bitwise_and(t, self.low_s[sl], out=t)
-        o += np.bitwise_count(t)
+        np.take(fblk, self.blk_s[sl], out=t)  # fblk: prefix count << 32 | bit mask
+        c = (t >> np.uint64(32)) + np.bitwise_count(t & self.low_s[sl])
         if self.blk_e is not None:
-            o2 = out2[:m]
-            blk = self.blk_e[sl]
-            np.take(fblk, blk, out=o2)
-            np.take(words, blk, out=t)
-            np.bitwise_and(t, self.low_e[sl], out=t)
-            o2 += np.bitwise_count(t)
-            o += o2
-            o *= 0.5
-        np.subtract(self.rank[sl], o, out=o)
+            np.take(fblk, self.blk_e[sl], out=t)
+            c += (t >> np.uint64(32)) + np.bitwise_count(t & self.low_e[sl])
+            np.subtract(self.rank[sl], c, out=o)
+            o += 0.5 * c  # rank − (F(start) + F(end))/2
+            return o
+        np.subtract(self.rank[sl], c, out=o)
         return o
 
     def tie_term(self, fblk: np.ndarray, words: np.ndarray) -> float:
@@ -581,9 +579,11 @@ class _Ranked:
         s, e = self.starts, self.starts + self.lens
 
         def f(p: np.ndarray) -> np.ndarray:
-            return fblk[p >> 5] + np.bitwise_count(words[p >> 5] & _low_mask(p))
+            return (fblk[p >> 5] >> np.uint64(32)).astype(np.int64) + np.bitwise_count(
+                words[p >> 5] & _low_mask(p)
+            )
 
-        t = self.lens - (f(e) - f(s))
+        t = (self.lens - (f(e) - f(s))).astype("float64")
         return float(np.sum(t**3 - t)) / 12.0
 
 
@@ -618,7 +618,7 @@ def fast_spearman(x: np.ndarray, pairs: list[tuple[int, int]] | None = None,
             return
         fb, wb, _ = cb.tables(missing[a])
         size = min(n, _CHUNK)
-        bufs = [np.empty(size) for _ in range(4)] + [np.empty(size, dtype=np.uint32)]
+        bufs = [np.empty(size) for _ in range(4)] + [np.empty(size, dtype=np.uint64)]
         dot = 0.0
         for start in range(0, n, _CHUNK):
             sl = slice(start, min(n, start + _CHUNK))
