@@ -44,7 +44,7 @@ def lab_server(tmp_path_factory: pytest.TempPathFactory, artifacts: Path) -> Ite
 def browser() -> Iterator[Any]:
     """Debian's headless Chromium through Playwright (never a downloaded browser)."""
     if not CHROMIUM.exists():
-        pytest.fail(f"{CHROMIUM} is missing: run `bash .ci/browser-setup.sh` (apt-get install chromium)")
+        pytest.fail(f"{CHROMIUM} is missing: run `sh .ci/browser-setup.sh` (apt-get install chromium)")
     from playwright.sync_api import sync_playwright
 
     with sync_playwright() as pw:
