@@ -14,7 +14,7 @@ from nbeda._context import ROLES
 from nbeda.report import Report
 from nbeda.sections import SECTIONS
 
-__all__ = ["ROLES", "SECTIONS", "Report", "demo", "load_ipython_extension", "__version__"]
+__all__ = ["ROLES", "SECTIONS", "Report", "demo", "options", "load_ipython_extension", "__version__"]
 
 __version__ = "0.1.0"
 

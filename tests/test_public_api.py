@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import re
+
 import pandas as pd
 
 import nbeda
@@ -9,7 +11,7 @@ import nbeda
 
 def test_top_level_all():
     assert sorted(nbeda.__all__) == sorted(
-        ["ROLES", "SECTIONS", "Report", "demo", "load_ipython_extension", "__version__"]
+        ["ROLES", "SECTIONS", "Report", "demo", "options", "load_ipython_extension", "__version__"]
     )
     assert nbeda.SECTIONS == ("roles", "spread", "shape", "gaps", "extremes", "links", "segments")
     assert nbeda.ROLES == (
@@ -25,6 +27,17 @@ def test_accessor_surface():
     assert callable(acc)
 
 
+def test_chart_option_is_validated():
+    assert nbeda.options.charts == "static"
+    try:
+        nbeda.options.charts = "fancy"
+    except ValueError:
+        pass
+    else:  # pragma: no cover - the assignment must be refused
+        raise AssertionError("a bad chart mode was accepted")
+    assert nbeda.options.charts == "static"
+
+
 def test_section_results_share_the_contract(demo_frame):
     report = nbeda.Report(demo_frame)
     for name in nbeda.SECTIONS:
@@ -32,4 +45,5 @@ def test_section_results_share_the_contract(demo_frame):
         assert isinstance(result.table, pd.DataFrame)
         assert result.name == name
         code = result.code("df")
-        assert f"{name} = " in code
+        # the code assigns the section's own name at top level (alone or in a tuple)
+        assert re.search(rf"^(\w+, )*{name}(, \w+)* = ", code, flags=re.M), name
