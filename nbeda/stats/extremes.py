@@ -71,6 +71,7 @@ __all__ = [
     "FIT_ROWS",
     "MAX_JOINT_COLUMNS",
     "sorted_quantile",
+    "column_median",
     "esd_steps",
     "cluster_notes",
     "extreme_scan",
@@ -116,19 +117,48 @@ def sorted_quantile(s, n, q):
     return np.where(n > 0, out, np.nan)
 
 
-def esd_steps(z, n, r, alpha):
-    """Generalized ESD (Rosner 1983) on each column of z (NaN = not used), vectorised over columns.
+def column_median(d, n):
+    """Median of each column of d (n finite values per column, NaN elsewhere), by partitioning
+    the columns that share the same n together (no full sort)."""
+    out = np.full(d.shape[1], np.nan)
+    for m in np.unique(n[n > 0]).tolist():
+        cols = np.flatnonzero(n == m)
+        lo, hi = (m - 1) // 2, m // 2
+        part = np.partition(d[:, cols], [lo, hi], axis=0)  # NaN sorts last
+        out[cols] = (part[lo] + part[hi]) / 2.0
+    return out
 
-    r[j] is the maximum number of outliers tested in column j (≤ n[j] − 3).  Returns a dict with
-    the per-step statistics R (n_steps × p), critical values lam, removed row positions, signed
-    scores, and for each column the number of outliers found and the mean/SD/λ of the data left
-    after removing them (step found + 1).
+
+def esd_steps(s, order, n, r, alpha):
+    """Generalized ESD (Rosner 1983) on each column, vectorised over columns.
+
+    s: each column's values sorted ascending (NaN last) and order: their row positions; n: finite
+    values per column; r[j]: the maximum number of outliers tested in column j (≤ n[j] − 3).
+    At every step the value furthest from the mean of the values left is the smallest or the
+    largest of them, so only the r + 1 lowest and r + 1 highest values can ever be removed: the
+    middle is summarised once (count, mean, sum of squared deviations) and merged with the
+    candidates still in at each step by the exact pairwise update of Chan, Golub & LeVeque (1979).
+    Returns the per-step statistics R (steps × columns), critical values lam, removed row
+    positions, signed scores (x − mean)/SD, the number of outliers found per column, and the
+    mean/SD/λ of the data left after removing them.
     """
-    n_rows, p = z.shape
+    n_rows, p = s.shape
     cols = np.arange(p)
     steps = int(r.max(initial=0)) + 1
-    active = np.isfinite(z)
-    zf = np.where(active, z, 0.0)
+    rank = np.arange(steps)[:, None]
+    k_low = np.broadcast_to(rank, (steps, p))
+    k_high = n[None, :] - steps + rank
+    ok = np.vstack([k_low < n[None, :], k_high >= steps])  # high candidates not already low ones
+    k = np.clip(np.vstack([k_low, k_high]), 0, max(n_rows - 1, 0))
+    cand = s[k, cols] if n_rows else np.zeros(k.shape)
+    cand_row = order[k, cols] if n_rows else np.zeros(k.shape, dtype=np.int64)
+    idx = np.arange(n_rows)[:, None]
+    core = (idx >= steps) & (idx < n[None, :] - steps)
+    n_core = core.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean_core = np.where(n_core > 0, np.where(core, s, 0.0).sum(axis=0) / n_core, 0.0)
+        m2_core = (np.where(core, s - mean_core, 0.0) ** 2).sum(axis=0)
+    active = ok.copy()
     R = np.full((steps, p), np.nan)
     lam = np.full((steps, p), np.nan)
     mean = np.full((steps, p), np.nan)
@@ -139,24 +169,26 @@ def esd_steps(z, n, r, alpha):
         m = n - i  # values left at this step
         valid = (i <= r) & (m >= 3)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-            mu = np.where(active, zf, 0.0).sum(axis=0) / m
-            dev = np.where(active, z - mu, 0.0)
-            v = np.sqrt((dev**2).sum(axis=0) / (m - 1))
+            nb = active.sum(axis=0)
+            mean_b = np.where(active, cand, 0.0).sum(axis=0) / nb
+            m2_b = (np.where(active, cand - mean_b, 0.0) ** 2).sum(axis=0)
+            total = n_core + nb
+            delta = mean_b - mean_core
+            mu = mean_core + delta * nb / total
+            v = np.sqrt((m2_core + m2_b + delta**2 * n_core * nb / total) / (m - 1))
+            dev = cand - mu
             absdev = np.where(active, np.abs(dev), -1.0)
-            j = absdev.argmax(axis=0) if n_rows else np.zeros(p, dtype=np.int64)
-            ok = valid & (v > 0)
-            Ri = np.where(ok, absdev[j, cols] / v, np.nan) if n_rows else np.full(p, np.nan)
+            j = absdev.argmax(axis=0)
+            ok_i = valid & (v > 0)
+            R[i] = np.where(ok_i, absdev[j, cols] / v, np.nan)
+            signed[i] = np.where(ok_i, dev[j, cols] / v, np.nan)
             df = np.where(valid, m - 2, 1).astype("float64")
             t = stats.t.ppf(1.0 - alpha / (2.0 * np.where(valid, m, 2)), df)
-            li = (m - 1) * t / np.sqrt((m - 2 + t**2) * m)
-            signed[i] = np.where(ok, dev[j, cols] / v, np.nan) if n_rows else np.nan
-        R[i] = Ri
-        lam[i] = np.where(valid, li, np.nan)
+            lam[i] = np.where(valid, (m - 1) * t / np.sqrt((m - 2 + t**2) * m), np.nan)
         mean[i] = np.where(valid, mu, np.nan)
         sd[i] = np.where(valid, v, np.nan)
-        removed[i] = j
-        if n_rows:
-            active[j[valid], cols[valid]] = False
+        removed[i] = cand_row[j, cols]
+        active[j[valid], cols[valid]] = False
     step_no = np.arange(1, steps + 1)[:, None]
     beyond = (R > lam) & (step_no <= r[None, :])
     found = np.where(beyond.any(axis=0), steps - np.argmax(beyond[::-1], axis=0), 0)
@@ -235,26 +267,37 @@ def extreme_scan(values, roles, requested, big_ints, alpha=0.05, max_outliers=10
     n = fin.sum(axis=0)
     n_inf = np.isinf(x).sum(axis=0)
     # Scale every column by a power of two (exact in floating point) so squares never overflow.
-    absmax = np.where(fin, np.abs(x), 0.0).max(axis=0, initial=0.0)
+    absmax = np.abs(np.where(fin, x, 0.0)).max(axis=0, initial=0.0)
     scale = np.ldexp(1.0, np.frexp(absmax)[1] - 1)
-    z = np.where(fin, x / scale, np.nan)
-    s = np.sort(z, axis=0) if n_rows else np.full((1, p), np.nan)
+    z = x / scale
+    z[~fin] = np.nan
+    s = np.sort(z, axis=0) if n_rows else np.full((1, p), np.nan)  # sorted once, reused below
     q1, med, q3 = (sorted_quantile(s, n, q) for q in (0.25, 0.5, 0.75))
     iqr = q3 - q1
     octile = [sorted_quantile(s, n, k / 8) for k in range(1, 8)]
-    mad = sorted_quantile(np.sort(np.abs(z - med), axis=0) if n_rows else s, n, 0.5)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        mean = np.where(fin, z, 0.0).sum(axis=0) / n
-        sd = np.sqrt((np.where(fin, z - mean, 0.0) ** 2).sum(axis=0) / (n - 1))
+    dev = z - med
+    np.abs(dev, out=dev)
+    mad = column_median(dev, n)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        np.copyto(dev, z)
+        dev[~fin] = 0.0
+        mean = dev.sum(axis=0) / n
+        dev -= mean
+        dev[~fin] = 0.0
+        sd = np.sqrt(np.einsum("ij,ij->j", dev, dev) / (n - 1))
+        del dev
         skew8 = (octile[6] + octile[0] - 2 * octile[3]) / (octile[6] - octile[0])
         moors = ((octile[6] - octile[4]) + (octile[2] - octile[0])) / (octile[5] - octile[1])
         spread8 = octile[6] / octile[0]
     lo_val, hi_val = s[0], s[np.maximum(n - 1, 0), cols]
     positive = (n > 0) & (lo_val > 0)
-    ls = np.log(np.where(positive, s, 1.0)) + np.log(scale)  # log of the data (data units)
-    lq1, lq3 = sorted_quantile(ls, n, 0.25), sorted_quantile(ls, n, 0.75)
-    lo8, mid8, hi8 = (sorted_quantile(ls, n, q) for q in (0.125, 0.5, 0.875))
-    with np.errstate(invalid="ignore", divide="ignore"):
+    pos_cols = np.flatnonzero(positive)
+    ls = np.log(s[:, pos_cols]) + np.log(scale[pos_cols])  # log of the data (data units), positive columns
+    lq1, lq3, lo8, mid8, hi8 = (np.full(p, np.nan) for _ in range(5))
+    for arr, q in ((lq1, 0.25), (lq3, 0.75), (lo8, 0.125), (mid8, 0.5), (hi8, 0.875)):
+        arr[pos_cols] = sorted_quantile(ls, n[pos_cols], q)
+    del ls
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         skew8_log = (hi8 + lo8 - 2 * mid8) / (hi8 - lo8)
 
     # ---- the rule of each column
@@ -304,11 +347,12 @@ def extreme_scan(values, roles, requested, big_ints, alpha=0.05, max_outliers=10
     # ---- generalized ESD where it is used
     esd_cols = np.flatnonzero(rule == "esd")
     esd = None
-    esd_flag = np.zeros((n_rows, p), dtype=bool)
-    esd_score = np.full((n_rows, p), np.nan)
+    esd_rows, esd_colj, esd_sc = [], [], []
     if esd_cols.size:
         r = np.clip(np.minimum(max_outliers, n[esd_cols] - 3), 0, None)
-        esd = esd_steps(z[:, esd_cols], n[esd_cols], r, alpha)
+        order = np.argsort(z[:, esd_cols], axis=0, kind="stable")
+        esd = esd_steps(s[:, esd_cols], order, n[esd_cols], r, alpha)
+        del order
         for k, j in enumerate(esd_cols):
             if requested[j] is None and esd["found"][k] >= max_outliers:
                 rule[j] = "modified_z"
@@ -318,8 +362,12 @@ def extreme_scan(values, roles, requested, big_ints, alpha=0.05, max_outliers=10
                 )
                 continue
             f = int(esd["found"][k])
-            esd_flag[esd["removed"][:f, k], j] = True
-            esd_score[esd["removed"][:f, k], j] = esd["signed"][:f, k]
+            esd_rows.append(esd["removed"][:f, k])
+            esd_colj.append(np.full(f, j))
+            esd_sc.append(esd["signed"][:f, k])
+    esd_rows = np.concatenate(esd_rows).astype(np.int64) if esd_rows else np.zeros(0, dtype=np.int64)
+    esd_colj = np.concatenate(esd_colj).astype(np.int64) if esd_colj else np.zeros(0, dtype=np.int64)
+    esd_sc = np.concatenate(esd_sc) if esd_sc else np.zeros(0)
 
     # ---- fences (data units), score anchors and units per column
     kk = np.where(rule == "tukey_far", 3.0, 1.5)
@@ -359,8 +407,15 @@ def extreme_scan(values, roles, requested, big_ints, alpha=0.05, max_outliers=10
         flag_low = fin & (x < lower)
         flag_high = fin & (x > upper)
         esd_use = usable & is_esd
-        flag_low[:, esd_use] = esd_flag[:, esd_use] & (esd_score[:, esd_use] < 0)
-        flag_high[:, esd_use] = esd_flag[:, esd_use] & (esd_score[:, esd_use] > 0)
+        flag_low[:, esd_use] = False
+        flag_high[:, esd_use] = False
+        mine = esd_use[esd_colj]
+        esd_rows, esd_colj, esd_sc = esd_rows[mine], esd_colj[mine], esd_sc[mine]
+        flag_low[esd_rows[esd_sc < 0], esd_colj[esd_sc < 0]] = True
+        flag_high[esd_rows[esd_sc > 0], esd_colj[esd_sc > 0]] = True
+        esd_key = esd_rows * max(p, 1) + esd_colj
+        esd_sort = np.argsort(esd_key)
+        esd_key, esd_sc = esd_key[esd_sort], esd_sc[esd_sort]
 
         def score_of(zv, j_idx, high):
             base = np.where(is_log[j_idx], np.log(np.where(is_log[j_idx], zv, 1.0)) + np.log(scale[j_idx]), zv)
@@ -389,7 +444,12 @@ def extreme_scan(values, roles, requested, big_ints, alpha=0.05, max_outliers=10
         cell_high = np.where(cell_inf, cell_x > 0, flag_high[r_idx, c_idx])
         cell_score = np.where(
             cell_inf, cell_x,
-            np.where(is_esd[c_idx], esd_score[r_idx, c_idx], score_of(z[r_idx, c_idx], c_idx, cell_high)),
+            np.where(
+                is_esd[c_idx],
+                esd_sc[np.clip(np.searchsorted(esd_key, r_idx * max(p, 1) + c_idx), 0, max(esd_sc.size - 1, 0))]
+                if esd_sc.size else np.nan,
+                score_of(z[r_idx, c_idx], c_idx, cell_high),
+            ),
         )
         cell_fence = np.where(cell_inf, np.nan, np.where(cell_high, upper[c_idx], lower[c_idx]))
 
@@ -437,7 +497,7 @@ def extreme_scan(values, roles, requested, big_ints, alpha=0.05, max_outliers=10
                 nj.append("ESD reached its maximum number of outliers: more may exist (raise max_outliers)")
             if n[j] < 25:
                 nj.append("n < 25: Rosner's λ approximation is less accurate (NIST/SEMATECH e-Handbook §1.3.5.17.3)")
-            inside = esd_flag[:, j] & (x[:, j] >= lower[j]) & (x[:, j] <= upper[j])
+            inside = (flag_low[:, j] | flag_high[:, j]) & (x[:, j] >= lower[j]) & (x[:, j] <= upper[j])
             if inside.any():
                 nj.append(f"{int(inside.sum())} ESD outlier(s) lie inside the fences of the remaining data")
         if usable[j] and n_low[j] + n_high[j] > 0:
@@ -471,25 +531,21 @@ def extremes_table(scan, labels):
     return table.astype({**ints, **floats, **texts})
 
 
-def robust_distances(y, seed=0, fit_rows=5000):
-    """Robust squared Mahalanobis distances of the rows of y (finite, n × p, every column with MAD > 0).
+def robust_distances(y, fit):
+    """Robust squared Mahalanobis distances of the rows of y (finite, m × p), fitted on the rows `fit`.
 
     Orthogonalized Gnanadesikan–Kettenring (OGK) estimate (Maronna & Zamar 2002) with MAD scales
     and two iterations, made consistent (median distance = χ²(p) median), then one reweighting
     step: mean and covariance of the rows within the χ²(p) 0.9 quantile, times the consistency
-    factor 0.9 / F_{χ²(p+2)}(χ²(p) 0.9 quantile).  Fitted on a seeded sample of fit_rows rows when
-    there are more; distances for every row.  Returns (d2, centre, precision, standardized y), all in
-    units standardized by each column's median and MAD.
+    factor 0.9 / F_{χ²(p+2)}(χ²(p) 0.9 quantile).  Every column must have MAD > 0 on the fit rows.
+    Returns (d2 for every row, centre, precision, med, mad): centre and precision are in units
+    standardized by the fit rows' median and MAD of each column.
     """
-    n, p = y.shape
-    med = np.median(y, axis=0)
-    mad = np.median(np.abs(y - med), axis=0) * 1.482602218505602
-    x = (y - med) / mad
-    if n > fit_rows:
-        pick = np.sort(np.random.default_rng(seed).choice(n, size=fit_rows, replace=False))
-        fit = x[pick]
-    else:
-        fit = x
+    p = y.shape[1]
+    f = y[fit]
+    med = np.median(f, axis=0)
+    mad = np.median(np.abs(f - med), axis=0) * 1.482602218505602
+    f = (f - med) / mad
 
     def rscale(a):
         c = np.median(a, axis=0)
@@ -497,55 +553,65 @@ def robust_distances(y, seed=0, fit_rows=5000):
         return np.where(out > 0, out, 1e-12)
 
     jj, kk = np.triu_indices(p, 1)
-    a_map = np.eye(p)
-    zfit = fit
+    z = f
     for _ in range(2):
-        d = rscale(zfit)
-        u = zfit / d
+        u = z / rscale(z)
         corr = np.eye(p)
         gk = (rscale(u[:, jj] + u[:, kk]) ** 2 - rscale(u[:, jj] - u[:, kk]) ** 2) / 4.0
         corr[jj, kk] = gk
         corr[kk, jj] = gk
-        _, vecs = np.linalg.eigh(corr)
-        zfit = u @ vecs
-        a_map = a_map @ (vecs / d[:, None])
-    loc = np.median(zfit, axis=0)
-    sc = rscale(zfit)
-    d2_fit = (((zfit - loc) / sc) ** 2).sum(axis=1)
+        z = u @ np.linalg.eigh(corr)[1]
+    d2_fit = (((z - np.median(z, axis=0)) / rscale(z)) ** 2).sum(axis=1)
     if np.median(d2_fit) > 0:
         d2_fit = d2_fit * stats.chi2.ppf(0.5, p) / np.median(d2_fit)
     keep = d2_fit <= stats.chi2.ppf(0.9, p)
     if keep.sum() <= p:
-        keep = np.ones(fit.shape[0], dtype=bool)
-    centre = fit[keep].mean(axis=0)
-    cov = np.cov(fit[keep], rowvar=False).reshape(p, p)
+        keep = np.ones(f.shape[0], dtype=bool)
+    centre = f[keep].mean(axis=0)
+    cov = np.cov(f[keep], rowvar=False).reshape(p, p)
     cov = cov * 0.9 / stats.chi2.cdf(stats.chi2.ppf(0.9, p), p + 2)
     vals, vecs = np.linalg.eigh(cov)
     vals = np.maximum(vals, vals.max() * 1e-12)
     precision = (vecs / vals) @ vecs.T
-    e = x - centre
-    d2 = np.einsum("ij,jk,ik->i", e, precision, e)
-    return d2, centre, precision, x
+    e = y - med
+    e /= mad
+    e -= centre
+    d2 = ((e @ precision) * e).sum(axis=1)
+    return d2, centre, precision, med, mad
 
 
 def joint_scan(values, joint_ok, log_scale, seed=0, fit_rows=5000, max_cols=30):
-    """Rows far from the bulk in the joint space of the usable numeric columns (robust distance)."""
+    """Rows far from the bulk in the joint space of the usable numeric columns (robust distance).
+
+    Columns with the log rule enter as log(x); rows with any missing or infinite value are left
+    out; above fit_rows complete rows the fit uses a seeded sample (numpy default_rng(seed)).
+    """
     x = np.asarray(values, dtype="float64").reshape(len(values), len(joint_ok))
     n_rows = x.shape[0]
     cols = np.flatnonzero(np.asarray(joint_ok, dtype=bool))[:max_cols]
     out = {"columns": cols, "d2": np.full(n_rows, np.nan), "cutoff": np.nan, "flagged": np.zeros(n_rows, dtype=bool),
            "rows": np.zeros(0, dtype=np.int64), "contrib": np.zeros((0, cols.size)), "n_used": 0, "n_fit": 0, "note": ""}
     y = x[:, cols]
+    logs = np.flatnonzero(np.asarray(log_scale, dtype=bool)[cols])
     with np.errstate(invalid="ignore", divide="ignore"):
-        y = np.where(np.asarray(log_scale, dtype=bool)[cols], np.log(np.where(y > 0, y, np.nan)), y)
-    complete = np.isfinite(y).all(axis=1)
-    y = y[complete]
-    if y.shape[0]:
-        mad = np.median(np.abs(y - np.median(y, axis=0)), axis=0)
-        spread_ok = mad > 0
-        cols, y = cols[spread_ok], y[:, spread_ok]
+        y[:, logs] = np.log(np.where(y[:, logs] > 0, y[:, logs], np.nan))
+    where = np.flatnonzero(np.isfinite(y).all(axis=1))
+    m = where.size
+    if m > fit_rows:
+        fit = np.sort(np.random.default_rng(seed).choice(m, size=fit_rows, replace=False))
+    else:
+        fit = np.arange(m)
+    if m:
+        # usable columns: MAD > 0 on the fit rows, and no value more than 1e100 MADs from the median
+        f = y[where[fit]]
+        med_f = np.median(f, axis=0)
+        mad_f = np.median(np.abs(f - med_f), axis=0)
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+            span = np.abs(y[where] - med_f).max(axis=0) / mad_f
+        spread_ok = (mad_f > 0) & (span < 1e100)
+        cols = cols[spread_ok]
     out["columns"] = cols
-    p, m = cols.size, y.shape[0]
+    p = cols.size
     if p < 2 or m < max(20, 5 * p):
         out["contrib"] = np.zeros((0, p))
         out["note"] = (
@@ -553,16 +619,25 @@ def joint_scan(values, joint_ok, log_scale, seed=0, fit_rows=5000, max_cols=30):
             f"max(20, 5·p) complete rows (have {p} column(s), {m} complete row(s))"
         )
         return out
-    d2, centre, precision, z = robust_distances(y, seed=seed, fit_rows=fit_rows)
+    y = y[where][:, spread_ok]
+    try:
+        with np.errstate(over="ignore", invalid="ignore", divide="ignore", under="ignore"):
+            d2, centre, precision, med, mad = robust_distances(y, fit)
+    except np.linalg.LinAlgError:
+        centre = precision = np.array([np.nan])
+    if not (np.isfinite(centre).all() and np.isfinite(precision).all()):
+        out["contrib"] = np.zeros((0, p))
+        out["note"] = "robust distance not computed: the estimate failed numerically (values spanning too wide a range)"
+        return out
     cutoff = stats.chi2.ppf(0.975, p)
-    where = np.flatnonzero(complete)
     out["d2"][where] = d2
     flagged = d2 > cutoff
     out["flagged"][where[flagged]] = True
-    out["cutoff"], out["n_used"], out["n_fit"] = cutoff, m, min(m, fit_rows)
+    out["cutoff"], out["n_used"], out["n_fit"] = cutoff, m, fit.size
     # Shapley contribution of each column to d² (Mayrhofer & Filzmoser 2023): e_j · (P e)_j, summing to d²
-    e = z[flagged] - centre
-    out["contrib"] = e * (e @ precision)
+    with np.errstate(over="ignore", invalid="ignore"):
+        e = (y[flagged] - med) / mad - centre
+        out["contrib"] = e * (e @ precision)
     out["rows"] = where[flagged]
     out["note"] = (
         f"robust distance on {p} columns and {m} complete rows"
@@ -580,6 +655,9 @@ def joint_table(joint, labels, row_labels):
     order = np.argsort(-d2, kind="stable")
     top = []
     for i in order:
+        if not np.isfinite(d2[i]):
+            top.append("")
+            continue
         best = np.argsort(-contrib[i], kind="stable")[:3]
         best = best[contrib[i, best] > 0]
         top.append("; ".join(f"{cols[b]} ({100 * contrib[i, b] / d2[i]:.0f}%)" for b in best))
@@ -696,6 +774,7 @@ def extremes_code(ctx: Context, parts: dict[str, Any], frame_name: str = "df") -
         header("Extremes: extreme values by a stated rule per column", ctx, frame_name, extra),
         "# The rules (self-contained functions; see each docstring).",
         function_source(sorted_quantile),
+        function_source(column_median),
         function_source(esd_steps),
         function_source(cluster_notes),
         function_source(extreme_scan),
