@@ -405,3 +405,17 @@ def test_large_trend_chart_is_binned_and_sampled():
     sizes = [len(v) for v in spec.get("datasets", {}).values()]
     assert max(sizes) <= 5000
     assert "seeded sample of 5,000 points" in str(spec)
+
+
+def test_fast_pearson_without_threadpoolctl(monkeypatch):
+    """The einsum path (no BLAS thread limit available) gives pandas' values too."""
+    import contextlib
+
+    monkeypatch.setattr(L, "_one_blas_thread", lambda: (contextlib.nullcontext(), False))
+    rng = np.random.default_rng(6)
+    x = rng.normal(size=(40_000, 4))
+    x[:, 1] += x[:, 0]
+    x[rng.random(x.shape) < 0.1] = np.nan
+    got, _ = L.fast_pearson(x)
+    want = pd.DataFrame(x).corr().to_numpy()
+    assert np.nanmax(np.abs(got - want)) < 1e-12

@@ -627,7 +627,7 @@ class _Ranked:
 
 
 #: Rows per slice in the fast Spearman's pair loop (temporaries stay in cache).
-_CHUNK = 8192  # below the size where BLAS dot goes multi-threaded
+_CHUNK = 32768
 
 
 def fast_spearman(x: np.ndarray, pairs: list[tuple[int, int]] | None = None,
@@ -643,7 +643,26 @@ def fast_spearman(x: np.ndarray, pairs: list[tuple[int, int]] | None = None,
     machine has them; numpy releases the GIL in these loops).
     """
     n, k = x.shape
-    cols = [_Ranked(np.ascontiguousarray(x[:, j], dtype="float64")) for j in range(k)]
+    workers = threads if threads is not None else min(2, os.cpu_count() or 1)
+    pool = None
+    if workers > 1 and n >= 50_000 and k > 1:
+        from concurrent.futures import ThreadPoolExecutor
+
+        pool = ThreadPoolExecutor(max_workers=workers)
+    try:
+        return _spearman_pairs(x, pairs, pool)
+    finally:
+        if pool is not None:
+            pool.shutdown()
+
+
+def _spearman_pairs(x: np.ndarray, pairs: list[tuple[int, int]] | None, pool: Any) -> np.ndarray:
+    n, k = x.shape
+
+    def ranked(j: int) -> _Ranked:
+        return _Ranked(np.ascontiguousarray(x[:, j], dtype="float64"))
+
+    cols = list(pool.map(ranked, range(k))) if pool is not None else [ranked(j) for j in range(k)]
     missing = [np.flatnonzero(np.isnan(x[:, j])) for j in range(k)]
     r = np.full((k, k), np.nan)
     todo = pairs if pairs is not None else [(a, b) for a in range(k) for b in range(a + 1, k)]
@@ -672,14 +691,10 @@ def fast_spearman(x: np.ndarray, pairs: list[tuple[int, int]] | None = None,
         if va > 0 and vb > 0:
             r[a, b] = r[b, a] = cross / np.sqrt(va * vb)
 
-    workers = threads if threads is not None else min(2, os.cpu_count() or 1)
     limit, _ = _one_blas_thread()
     with limit:
-        if workers > 1 and len(todo) > 1 and n >= 50_000:
-            from concurrent.futures import ThreadPoolExecutor
-
-            with ThreadPoolExecutor(max_workers=workers) as pool:
-                list(pool.map(one, todo))
+        if pool is not None and len(todo) > 1:
+            list(pool.map(one, todo))
         else:
             for ab in todo:
                 one(ab)
