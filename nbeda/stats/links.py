@@ -438,20 +438,26 @@ def fast_pearson(x: np.ndarray, chunk: int = 16384) -> tuple[np.ndarray, np.ndar
     n, k = x.shape
     cnt = np.zeros(k)
     total = np.zeros(k)
+    big = np.zeros(k)  # largest |value|: dividing by it first keeps squares from overflowing
     for s0 in range(0, n, chunk):
-        b = x[s0:s0 + chunk]
+        b = np.abs(x[s0:s0 + chunk])
+        big = np.maximum(big, np.where(np.isnan(b), 0.0, b).max(axis=0, initial=0.0))
+    big = np.where(big > 0, big, 1.0)
+    for s0 in range(0, n, chunk):
+        b = x[s0:s0 + chunk] / big
         ok = ~np.isnan(b)
         cnt += ok.sum(axis=0)
         total += np.where(ok, b, 0.0).sum(axis=0)
-    with np.errstate(all="ignore"):
-        mean = np.where(cnt > 0, total / np.maximum(cnt, 1), 0.0)
+    mean = np.where(cnt > 0, total / np.maximum(cnt, 1), 0.0)
     ss = np.zeros(k)
-    for s0 in range(0, n, chunk):
-        b = x[s0:s0 + chunk]
-        d = np.where(np.isnan(b), 0.0, b - mean)
-        ss += (d * d).sum(axis=0)
-    scale = np.sqrt(ss / np.maximum(cnt, 1))
+    with np.errstate(under="ignore"):
+        for s0 in range(0, n, chunk):
+            b = x[s0:s0 + chunk] / big
+            d = np.where(np.isnan(b), 0.0, b - mean)
+            ss += (d * d).sum(axis=0)
+    scale = np.sqrt(ss / np.maximum(cnt, 1)) * big
     scale = np.where(scale > 0, scale, 1.0)
+    mean = mean * big
     nobs = np.zeros((k, k))
     sx = np.zeros((k, k))
     sxx = np.zeros((k, k))
