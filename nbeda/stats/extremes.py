@@ -648,27 +648,35 @@ def joint_scan(values, joint_ok, log_scale, seed=0, fit_rows=5000, max_cols=30):
 
 
 def joint_table(joint, labels, row_labels):
-    """One row per row flagged by the robust distance, most distant first, with its main contributors."""
-    cols = [labels[c] for c in joint["columns"]]
-    d2 = joint["d2"][joint["rows"]]
-    contrib = joint["contrib"]
-    order = np.argsort(-d2, kind="stable")
-    top = []
-    for i in order:
-        if not np.isfinite(d2[i]):
-            top.append("")
-            continue
-        best = np.argsort(-contrib[i], kind="stable")[:3]
-        best = best[contrib[i, best] > 0]
-        top.append("; ".join(f"{cols[b]} ({100 * contrib[i, b] / d2[i]:.0f}%)" for b in best))
-    p = len(cols)
+    """One row per row flagged by the robust distance, most distant first, with its main contributors
+    (the three largest positive shares of the squared distance)."""
+    names = np.empty(len(joint["columns"]), dtype=object)
+    names[:] = [str(labels[c]) for c in joint["columns"]]
+    order = np.argsort(-joint["d2"][joint["rows"]], kind="stable")
+    rows = joint["rows"][order]
+    d2 = joint["d2"][rows]
+    contrib = joint["contrib"][order]
+    top = pd.Series("", index=np.arange(rows.size), dtype=object)
+    if rows.size and names.size:
+        best = np.argsort(-contrib, axis=1, kind="stable")[:, :3]
+        picked = np.take_along_axis(contrib, best, axis=1)
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+            share = np.round(100 * picked / d2[:, None])
+        show = (picked > 0) & np.isfinite(share) & np.isfinite(d2)[:, None]
+        for t in range(best.shape[1]):
+            part = pd.Series(names[best[:, t]], dtype=object) + " (" + pd.Series(
+                np.where(show[:, t], share[:, t], 0).astype(np.int64).astype(str), dtype=object) + "%)"
+            part = part.where(show[:, t], "")
+            sep = pd.Series(np.where((top != "") & show[:, t], "; ", ""), dtype=object)
+            top = top + sep + part
+    p = names.size
     return pd.DataFrame(
         {
-            "row": pd.Series([row_labels[r] for r in joint["rows"][order]], dtype=object),
-            "distance2": d2[order],
-            "cutoff": np.full(order.size, joint["cutoff"]),
-            "p_value": stats.chi2.sf(d2[order], p) if p else np.zeros(0),
-            "top_columns": pd.Series(top, dtype=object),
+            "row": pd.Series(list(pd.Index(row_labels)[rows]), dtype=object),
+            "distance2": d2,
+            "cutoff": np.full(rows.size, joint["cutoff"]),
+            "p_value": stats.chi2.sf(d2, p) if p else np.zeros(0),
+            "top_columns": top.astype(object),
         }
     )
 
@@ -730,7 +738,7 @@ def compute_extremes(
     fit_rows = int(ctx.options.sample) if ctx.options.sample else FIT_ROWS
     joint = joint_scan(values, scan["joint_ok"], scan["log_scale"], seed=ctx.options.seed,
                        fit_rows=fit_rows, max_cols=MAX_JOINT_COLUMNS)
-    jtable = joint_table(joint, labels, list(ctx.frame.index))
+    jtable = joint_table(joint, labels, ctx.frame.index)
     return {
         "positions": positions, "requested": requested, "roles": roles, "big_ints": big,
         "scan": scan, "table": table, "joint": joint, "joint_table": jtable, "fit_rows": fit_rows,
@@ -758,7 +766,7 @@ extremes = extremes_table(scan, labels)
 # Rows far from the bulk jointly (robust distance), fitted on a seeded sample when large.
 joint = joint_scan(x.to_numpy(dtype="float64", na_value=np.nan), scan["joint_ok"], scan["log_scale"],
                    seed={ctx.options.seed!r}, fit_rows={parts['fit_rows']!r}, max_cols={MAX_JOINT_COLUMNS!r})
-extremes_joint = joint_table(joint, labels, list({frame_name}.index))
+extremes_joint = joint_table(joint, labels, {frame_name}.index)
 """
 
 
