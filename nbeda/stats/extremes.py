@@ -129,11 +129,11 @@ def column_median(d, n):
     return out
 
 
-def esd_steps(s, order, n, r, alpha):
+def esd_steps(s, z, n, r, alpha):
     """Generalized ESD (Rosner 1983) on each column, vectorised over columns.
 
-    s: each column's values sorted ascending (NaN last) and order: their row positions; n: finite
-    values per column; r[j]: the maximum number of outliers tested in column j (≤ n[j] − 3).
+    s: each column's values sorted ascending (NaN last); z: the same columns in row order (to find
+    the rows of the candidates); n: finite values per column; r[j]: the maximum number of outliers tested in column j (≤ n[j] − 3).
     At every step the value furthest from the mean of the values left is the smallest or the
     largest of them, so only the r + 1 lowest and r + 1 highest values can ever be removed: the
     middle is summarised once (count, mean, sum of squared deviations) and merged with the
@@ -151,7 +151,16 @@ def esd_steps(s, order, n, r, alpha):
     ok = np.vstack([k_low < n[None, :], k_high >= steps])  # high candidates not already low ones
     k = np.clip(np.vstack([k_low, k_high]), 0, max(n_rows - 1, 0))
     cand = s[k, cols] if n_rows else np.zeros(k.shape)
-    cand_row = order[k, cols] if n_rows else np.zeros(k.shape, dtype=np.int64)
+    cand_row = np.zeros(k.shape, dtype=np.int64)
+    for j in range(p):  # rows of the candidates: a stable sort of the tail rows only
+        if n[j] == 0:
+            continue
+        low_v, high_v = s[min(steps, n[j]) - 1, j], s[max(n[j] - steps, 0), j]
+        idx = np.flatnonzero((z[:, j] <= low_v) | (z[:, j] >= high_v))
+        idx = idx[np.argsort(z[idx, j], kind="stable")]
+        c_low = int(np.sum(z[idx, j] <= low_v))
+        pos = np.where(k[:, j] < c_low, k[:, j], idx.size - (n[j] - k[:, j]))
+        cand_row[:, j] = idx[np.clip(pos, 0, idx.size - 1)]
     idx = np.arange(n_rows)[:, None]
     core = (idx >= steps) & (idx < n[None, :] - steps)
     n_core = core.sum(axis=0)
@@ -350,9 +359,7 @@ def extreme_scan(values, roles, requested, big_ints, alpha=0.05, max_outliers=10
     esd_rows, esd_colj, esd_sc = [], [], []
     if esd_cols.size:
         r = np.clip(np.minimum(max_outliers, n[esd_cols] - 3), 0, None)
-        order = np.argsort(z[:, esd_cols], axis=0, kind="stable")
-        esd = esd_steps(s[:, esd_cols], order, n[esd_cols], r, alpha)
-        del order
+        esd = esd_steps(s[:, esd_cols], z[:, esd_cols], n[esd_cols], r, alpha)
         for k, j in enumerate(esd_cols):
             if requested[j] is None and esd["found"][k] >= max_outliers:
                 rule[j] = "modified_z"
