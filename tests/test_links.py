@@ -419,3 +419,18 @@ def test_fast_pearson_without_threadpoolctl(monkeypatch):
     got, _ = L.fast_pearson(x)
     want = pd.DataFrame(x).corr().to_numpy()
     assert np.nanmax(np.abs(got - want)) < 1e-12
+
+
+def test_extreme_magnitudes_round_trip():
+    """Values near 1e300 and 1e-300: correlation is scale-free, so both sides scale first."""
+    rng = np.random.default_rng(12)
+    a = rng.normal(size=60)
+    frame = pd.DataFrame({"huge": a * 1e300, "tiny": (a + rng.normal(size=60)) * 1e-300,
+                          "plain": rng.normal(size=60)})
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        res = frame.eda.links()
+    ref = stats.pearsonr(a, frame["tiny"] * 1e300).statistic
+    assert _row(res.table, "huge", "tiny", "pearson")["estimate"] == pytest.approx(ref, abs=1e-12)
+    ns = run_code(res.code("df"), frame)
+    assert_same_table(ns["links"], res.table)

@@ -490,8 +490,8 @@ def fast_pearson(x: np.ndarray, chunk: int = 16384) -> tuple[np.ndarray, np.ndar
     return np.clip(r, -1.0, 1.0), nobs.astype("int64")
 
 
-def _order_present(x: np.ndarray) -> np.ndarray:
-    """Row positions of the non-missing values of ``x`` in ascending order of value.
+def _order_present(x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Row positions of the non-missing values of ``x`` in ascending order, and those values.
 
     Sorting packed 64-bit keys (the value's order-preserving bits, high part, with the row
     number in the low bits) is several times faster than ``np.argsort`` on floats; values
@@ -502,7 +502,7 @@ def _order_present(x: np.ndarray) -> np.ndarray:
     v = x[idx]
     na = idx.size
     if na < 2:
-        return idx
+        return idx, v
     bits = int(na - 1).bit_length()
     u = v.view(np.uint64)
     key = np.where(u >> np.uint64(63), ~u, u | np.uint64(1 << 63))
@@ -523,7 +523,8 @@ def _order_present(x: np.ndarray) -> np.ndarray:
         sel = np.repeat(lo - np.cumsum(np.r_[0, lens[:-1]]), lens) + np.arange(lens.sum())
         run = np.repeat(np.arange(lo.size), lens)
         local[sel] = local[sel][np.lexsort((v[local[sel]], run))]
-    return idx[local]
+        sv = v[local]
+    return idx[local], sv
 
 
 def _low_mask(p: np.ndarray) -> np.ndarray:
@@ -545,10 +546,9 @@ class _Ranked:
 
     def __init__(self, x: np.ndarray) -> None:
         nrows = x.size
-        order = _order_present(x)
+        order, sv = _order_present(x)
         na = order.size
         self.n, self.nrows = na, nrows
-        sv = x[order]
         flags = np.empty(na, dtype=bool)
         if na:
             flags[0] = True
