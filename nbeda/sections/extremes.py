@@ -185,6 +185,8 @@ class ExtremesResult(SectionResult):
             scale = alt.Scale(type="log") if log else alt.Scale(zero=False)
             x_title = f"{label} — {scan['rule'][k]}" + (" (log axis)" if log else "")
             axis = alt.Axis(labelOverlap=True, tickCount=6)
+            if log and v.size and v.max() > 0:
+                axis = alt.Axis(labelOverlap=True, values=_decades(min(v[v > 0].min(), lo), max(v.max(), hi)))
             base = alt.Chart(box)
             whisker = base.mark_rule(color="#555").encode(
                 x=alt.X("whisker_low:Q", scale=scale, title=x_title, axis=axis), x2="whisker_high:Q"
@@ -230,7 +232,7 @@ class ExtremesResult(SectionResult):
         )
         x = alt.X(
             "from:Q", scale=alt.Scale(type="log"), title="robust distance (log axis)",
-            axis=alt.Axis(labelOverlap=True),
+            axis=alt.Axis(labelOverlap=True, values=_decades(float(edges[0]), float(edges[-1]))),
         )
         bars = alt.Chart(bins).mark_bar(color="#b9c7d6").encode(
             x=x, x2="to:Q", y=alt.Y("rows:Q", title="rows"), y2=alt.datum(0), tooltip=["rows:Q"]
@@ -279,6 +281,12 @@ class ExtremesResult(SectionResult):
         action.observe(show, names="value")
         show()
         return w.VBox([head, pick, out, action, code])
+
+
+def _decades(lo: float, hi: float) -> list[float]:
+    """Powers of ten spanning [lo, hi] (tick values of a log axis)."""
+    lo, hi = max(lo, 1e-300), max(hi, 1e-300)
+    return [10.0**k for k in range(math.floor(math.log10(lo)), math.ceil(math.log10(hi)) + 1)]
 
 
 def scan_values(ctx: Context, parts: dict[str, Any], k: int, rows: np.ndarray) -> np.ndarray:

@@ -656,7 +656,7 @@ def joint_scan(values, joint_ok, log_scale, seed=0, fit_rows=5000, max_cols=30):
 
 def joint_table(joint, labels, row_labels):
     """One row per row flagged by the robust distance, most distant first, with its main contributors
-    (the three largest positive shares of the squared distance)."""
+    (up to three columns with the largest shares of the squared distance, shares of at least 1%)."""
     names = np.empty(len(joint["columns"]), dtype=object)
     names[:] = [str(labels[c]) for c in joint["columns"]]
     order = np.argsort(-joint["d2"][joint["rows"]], kind="stable")
@@ -669,7 +669,7 @@ def joint_table(joint, labels, row_labels):
         picked = np.take_along_axis(contrib, best, axis=1)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             share = np.round(100 * picked / d2[:, None])
-        show = (picked > 0) & np.isfinite(share) & np.isfinite(d2)[:, None]
+        show = (share >= 1) & np.isfinite(share) & np.isfinite(d2)[:, None]
         for t in range(best.shape[1]):
             part = pd.Series(names[best[:, t]], dtype=object) + " (" + pd.Series(
                 np.where(show[:, t], share[:, t], 0).astype(np.int64).astype(str), dtype=object) + "%)"
@@ -844,9 +844,12 @@ for pos, lo, hi in zip({names}, extremes["lower"].to_numpy(), extremes["upper"].
         flag_name = "is_extreme"
         while flag_name in taken:
             flag_name = "_" + flag_name
+        flag_key: Any = flag_name
+        if isinstance(ctx.frame.columns, pd.MultiIndex):  # a full-length key for MultiIndex columns
+            flag_key = (flag_name,) + ("",) * (ctx.frame.columns.nlevels - 1)
         body = f"""\
 {caution}# A boolean column marking the rows flagged by any column's rule{' or by the robust distance' if joint else ''}.
 {frame_name}_flagged = {frame_name}.copy()
-{frame_name}_flagged[{flag_name!r}] = {rows_expr}{joint_line}
+{frame_name}_flagged[{flag_key!r}] = {rows_expr}{joint_line}
 """
     return join_blocks(base, body)
