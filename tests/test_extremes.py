@@ -83,7 +83,7 @@ def test_rosner_generalized_esd_matches_nist_handbook(rosner):
 def test_rosner_esd_respects_alpha_and_max_outliers(rosner):
     """Same data (NIST §1.3.5.17.3): with r = 2 the procedure can test only 6.01 and 5.42, whose
     R values (3.119, 2.943) stay below λ (3.159, 3.151): nothing is flagged. A looser α = 0.2
-    gives larger critical... smaller λ, so at least the same 3 outliers."""
+    lowers every λ, so at least the same 3 outliers are found."""
     res = _extremes(rosner, rule="esd", max_outliers=2)
     assert res.table.loc["value", "n_high"] == 0
     loose = _extremes(rosner, rule="esd", alpha=0.2)
