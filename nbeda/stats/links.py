@@ -634,6 +634,9 @@ class _Ranked:
 
 #: Rows per slice in the fast Spearman's pair loop (temporaries stay in cache).
 _CHUNK = 32768
+#: Smaller slices when BLAS cannot be held to one thread (its dot goes multi-threaded
+#: above about 10,000 elements, which is very slow on a busy machine).
+_CHUNK_NO_LIMIT = 8192
 
 
 def fast_spearman(x: np.ndarray, pairs: list[tuple[int, int]] | None = None,
@@ -669,6 +672,8 @@ def _spearman_pairs(x: np.ndarray, pairs: list[tuple[int, int]] | None, pool: An
         return _Ranked(np.ascontiguousarray(x[:, j], dtype="float64"))
 
     cols = list(pool.map(ranked, range(k))) if pool is not None else [ranked(j) for j in range(k)]
+    limit, single = _one_blas_thread()
+    chunk = _CHUNK if single else _CHUNK_NO_LIMIT
     missing = [np.flatnonzero(np.isnan(x[:, j])) for j in range(k)]
     r = np.full((k, k), np.nan)
     todo = pairs if pairs is not None else [(a, b) for a in range(k) for b in range(a + 1, k)]
@@ -681,11 +686,11 @@ def _spearman_pairs(x: np.ndarray, pairs: list[tuple[int, int]] | None, pool: An
         if m < 2:
             return
         fb, wb, _ = cb.tables(missing[a])
-        size = min(n, _CHUNK)
+        size = min(n, chunk)
         bufs = [np.empty(size) for _ in range(4)] + [np.empty(size, dtype=np.uint64)]
         dot = 0.0
-        for start in range(0, n, _CHUNK):
-            sl = slice(start, min(n, start + _CHUNK))
+        for start in range(0, n, chunk):
+            sl = slice(start, min(n, start + chunk))
             ra = ca.reranked(fa, wa, sl, bufs[0], bufs[4], bufs[1])
             rb = cb.reranked(fb, wb, sl, bufs[2], bufs[4], bufs[3])
             dot += float(np.dot(ra, rb))
@@ -697,7 +702,6 @@ def _spearman_pairs(x: np.ndarray, pairs: list[tuple[int, int]] | None, pool: An
         if va > 0 and vb > 0:
             r[a, b] = r[b, a] = cross / np.sqrt(va * vb)
 
-    limit, _ = _one_blas_thread()
     with limit:
         if pool is not None and len(todo) > 1:
             list(pool.map(one, todo))
