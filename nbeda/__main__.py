@@ -20,6 +20,8 @@ import time
 from pathlib import Path
 from typing import Any
 
+from nbeda._parse import OptionError, parse_roles, resolve_column
+
 __all__ = ["main", "read_data", "reader_for"]
 
 _COMPRESSION = (".gz", ".bz2", ".zip", ".xz", ".zst", ".tar")
@@ -79,30 +81,17 @@ def read_data(path: str | os.PathLike[str]) -> Any:
 
 
 def _column(frame: Any, name: str, what: str) -> Any:
-    if name in frame.columns:
-        return name
-    matches = [c for c in frame.columns if str(c) == name]
-    if len(matches) == 1:
-        return matches[0]
-    shown = ", ".join(map(str, list(frame.columns)[:30])) + (" …" if frame.shape[1] > 30 else "")
-    raise CliError(f"{what}: no column named {name!r}; columns are: {shown}")
+    try:
+        return resolve_column(frame, name, what)
+    except OptionError as exc:
+        raise CliError(str(exc)) from None
 
 
 def _roles(text: str | None, frame: Any) -> dict[Any, str]:
-    from nbeda._context import ROLES
-
-    out: dict[Any, str] = {}
-    for part in (text or "").split(","):
-        if not part.strip():
-            continue
-        if "=" not in part:
-            raise CliError(f"--roles expects column=role pairs, got {part.strip()!r}")
-        col, role = part.rsplit("=", 1)
-        role = role.strip().lower()
-        if role not in ROLES:
-            raise CliError(f"--roles: unknown role {role!r} for {col.strip()!r}; roles are: {', '.join(ROLES)}")
-        out[_column(frame, col.strip(), "--roles")] = role
-    return out
+    try:
+        return parse_roles(text, frame)
+    except OptionError as exc:
+        raise CliError(str(exc)) from None
 
 
 def script_text(report: Any, data_path: str | os.PathLike[str]) -> str:

@@ -11,7 +11,8 @@ from IPython.core.magic import Magics, cell_magic, line_magic, magics_class
 from IPython.core.magic_arguments import argument, magic_arguments, parse_argstring
 from IPython.display import display
 
-from nbeda._context import ROLES
+from nbeda._parse import OptionError, resolve_column
+from nbeda._parse import parse_roles as _parse_roles
 from nbeda.report import Report, normalise_tab
 from nbeda.sections import SECTIONS
 
@@ -44,34 +45,19 @@ def split_line(line: str) -> tuple[str, str]:
     return line.strip(), ""
 
 
-def _resolve_column(frame: pd.DataFrame, name: str) -> Any:
-    if name in frame.columns:
-        return name
-    matches = [c for c in frame.columns if str(c) == name]
-    if len(matches) == 1:
-        return matches[0]
-    raise UsageError(
-        f"unknown column {name!r}; columns are: {', '.join(map(str, list(frame.columns)[:30]))}"
-        + (" …" if frame.shape[1] > 30 else "")
-    )
+def _resolve_column(frame: pd.DataFrame, name: str, what: str = "") -> Any:
+    try:
+        return resolve_column(frame, name, what)
+    except OptionError as exc:
+        raise UsageError(str(exc)) from None
 
 
 def parse_roles(text: str | None, frame: pd.DataFrame) -> dict[Any, str]:
     """``"col=role,col2=role"`` → ``{col: role}`` with columns and roles checked."""
-    if not text:
-        return {}
-    out: dict[Any, str] = {}
-    for part in text.split(","):
-        if not part.strip():
-            continue
-        if "=" not in part:
-            raise UsageError(f"--roles expects column=role pairs, got {part.strip()!r}")
-        col, role = part.rsplit("=", 1)
-        role = role.strip().lower()
-        if role not in ROLES:
-            raise UsageError(f"unknown role {role!r}; roles are: {', '.join(ROLES)}")
-        out[_resolve_column(frame, col.strip())] = role
-    return out
+    try:
+        return _parse_roles(text, frame)
+    except OptionError as exc:
+        raise UsageError(str(exc)) from None
 
 
 @magics_class
@@ -175,8 +161,8 @@ class EdaMagics(Magics):
             raise
         except SystemExit:  # argparse's own exit on bad input
             raise UsageError(f"bad options: {opts!r}; see %eda?") from None
-        by = _resolve_column(frame, args.by) if args.by else None
-        target = _resolve_column(frame, args.target) if args.target else None
+        by = _resolve_column(frame, args.by, "--by") if args.by else None
+        target = _resolve_column(frame, args.target, "--target") if args.target else None
         roles = parse_roles(args.roles, frame)
         try:
             tab = normalise_tab(args.tab) if args.tab else None

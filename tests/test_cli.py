@@ -160,10 +160,10 @@ def test_parquet(tmp_path, capsys):
 @pytest.mark.parametrize(
     ("extra", "message"),
     [
-        (["--by", "nowhere"], "--by: no column named 'nowhere'"),
-        (["--target", "nowhere"], "--target: no column named 'nowhere'"),
+        (["--by", "nowhere"], "--by: unknown column 'nowhere'"),
+        (["--target", "nowhere"], "--target: unknown column 'nowhere'"),
         (["--roles", "pest_score=wizard"], "unknown role 'wizard'"),
-        (["--roles", "nowhere=nominal"], "--roles: no column named 'nowhere'"),
+        (["--roles", "nowhere=nominal"], "--roles: unknown column 'nowhere'"),
         (["--roles", "pest_score"], "column=role pairs"),
         (["--sample", "0"], "sample must be a positive row count"),
         (["--confidence", "1.5"], "confidence must be in"),
