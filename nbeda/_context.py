@@ -76,8 +76,15 @@ class Context:
     def __init__(self, frame: pd.DataFrame, options: Options | None = None) -> None:
         if not isinstance(frame, pd.DataFrame):
             raise TypeError(f"expected a pandas DataFrame, got {type(frame).__name__}")
-        self.frame = frame
+        self.user_frame = frame
         self.options = options or Options()
+        #: positions of columns cast to ordered Categoricals because the user called them ordinal
+        self.ordinal_casts: dict[int, list[Any]] = ordinal_casts(frame, self.options.roles)
+        if self.ordinal_casts:  # a shallow copy: the user's frame is never touched
+            frame = frame.copy(deep=False)
+            for i, levels in self.ordinal_casts.items():
+                frame.isetitem(i, pd.Categorical(frame.iloc[:, i], categories=levels, ordered=True))
+        self.frame = frame
         self.labels: list[Any] = list(frame.columns)
         self.unique_labels: bool = bool(frame.columns.is_unique) and not isinstance(
             frame.columns, pd.MultiIndex
@@ -128,7 +135,7 @@ class Context:
         if self._roles is None:
             from nbeda.stats.roles import compute_roles
 
-            self._roles = compute_roles(self.frame, self.options.roles)
+            self._roles = compute_roles(self.user_frame, self.options.roles)  # the frame as given
         return self._roles
 
     @property
@@ -171,6 +178,41 @@ class Context:
         if not positions:
             return np.empty((self.n_rows, 0))
         return np.column_stack([self.float_values(i) for i in positions])
+
+
+def ordinal_casts(frame: pd.DataFrame, overrides: Mapping[Any, str]) -> dict[int, list[Any]]:
+    """Columns the user declared ordinal that carry no order yet, with their levels in sorted order.
+
+    Numeric columns keep their numbers (their order is the numbers'); ordered
+    Categoricals keep their own order.  Other columns (strings, booleans, unordered
+    categoricals) become ordered Categoricals whose levels are sorted (first-seen
+    order when the values do not sort).  Levels must be plain scalars so the
+    emitted code can write them as literals.
+    """
+    out: dict[int, list[Any]] = {}
+    for label, role in overrides.items():
+        if role != "ordinal":
+            continue
+        for i in _find_label(frame.columns, label):
+            s = frame.iloc[:, i]
+            dt = s.dtype
+            if isinstance(dt, pd.CategoricalDtype) and dt.ordered:
+                continue
+            if pd.api.types.is_numeric_dtype(dt) and not pd.api.types.is_bool_dtype(dt):
+                continue
+            try:
+                values = list(pd.unique(s.dropna()))
+            except TypeError:
+                continue  # unhashable values cannot be levels
+            plain = [v.item() if isinstance(v, np.generic) else v for v in values]
+            if not all(isinstance(v, (str, int, float, bool)) for v in plain):
+                continue
+            try:
+                plain = sorted(plain)
+            except TypeError:
+                pass
+            out[i] = plain
+    return out
 
 
 def to_float(s: pd.Series) -> np.ndarray:

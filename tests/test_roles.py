@@ -101,3 +101,29 @@ def test_unknown_role_rejected():
         Report(pd.DataFrame({"a": [1, 2]}), roles={"a": "weird"})
     with pytest.raises(KeyError, match="no column named"):
         Report(pd.DataFrame({"a": [1, 2]}), roles={"b": "nominal"})
+
+
+def test_ordinal_override_becomes_an_ordered_categorical_in_every_tab_and_its_code(demo_frame):
+    """An ordinal override on text is an ordered Categorical cast (levels sorted), in the
+    computation and in every section's emitted code; the user's frame stays as it was."""
+    from helpers import assert_unchanged, snapshot
+
+    from nbeda.sections import SECTIONS
+
+    frame = demo_frame.head(600)
+    snap = snapshot(frame)
+    report = Report(frame, roles={"site": "ordinal"})
+    assert report.ctx.frame["site"].cat.ordered
+    assert list(report.ctx.frame["site"].cat.categories) == sorted(frame["site"].unique())
+    for name in SECTIONS:
+        result = report.section(name)
+        code = result.code("df")
+        if name != "roles":  # Roles describes the frame as given
+            assert "pd.Categorical(df.iloc[:, 1], categories=['Eastfield', 'Hilltop'" in code, name
+        ns = run_code(code, frame)
+        assert_same_table(ns[name], result.table)
+    assert_unchanged(frame, snap)
+    # Links now pairs the site with the ordinal soil grade by rank correlation
+    links = report.links().table
+    pair = links[(links["x"] == "site") & (links["y"] == "soil_grade")]
+    assert set(pair["measure"]) == {"spearman", "kendall"}

@@ -36,8 +36,10 @@ def lit(value: Any) -> str:
     return repr(value)
 
 
-def header(title: str, ctx: Context, frame_name: str, extra: Iterable[str] = ()) -> str:
-    """Comment block + imports that open every section's code."""
+def header(
+    title: str, ctx: Context, frame_name: str, extra: Iterable[str] = (), *, casts: bool = True
+) -> str:
+    """Comment block + imports that open every section's code (+ the ordinal casts, unless ``casts=False``)."""
     o = ctx.options
     lines = [
         f"# {title} — plain pandas/numpy/scipy code; expects the frame in `{frame_name}`.",
@@ -49,6 +51,17 @@ def header(title: str, ctx: Context, frame_name: str, extra: Iterable[str] = ())
         lines.append(f"# Role overrides in force: {dict(o.roles)!r}")
     lines += [f"# {e}" for e in extra]
     lines += ["import numpy as np", "import pandas as pd", "from scipy import stats"]
+    if casts and ctx.ordinal_casts:
+        lines.append(
+            f"# Columns declared ordinal become ordered Categoricals (levels in sorted order), on a "
+            f"shallow copy bound to `{frame_name}` — the original frame is not changed."
+        )
+        lines.append(f"{frame_name} = {frame_name}.copy(deep=False)")
+        for i, levels in ctx.ordinal_casts.items():
+            lines.append(
+                f"{frame_name}.isetitem({i}, pd.Categorical({frame_name}.iloc[:, {i}], "
+                f"categories={levels!r}, ordered=True))  # {lit(ctx.labels[i])}"
+            )
     return "\n".join(lines) + "\n"
 
 

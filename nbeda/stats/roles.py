@@ -182,7 +182,7 @@ roles = pd.DataFrame(
 ).astype({{"count": "int64", "missing": "int64", "unique": "int64"}})
 """
     return join_blocks(
-        header("Roles: what each column is", ctx, frame_name),
+        header("Roles: what each column is", ctx, frame_name, casts=False),
         "# The role rules, one column at a time.",
         function_source(role_row),
         function_source(_role_rules),
