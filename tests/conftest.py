@@ -1,9 +1,16 @@
 from __future__ import annotations
 
+import os
 import sys
 from pathlib import Path
 
 import pytest
+from hypothesis import settings
+
+# CI replays the same generated examples every run (explore locally with random seeds).
+settings.register_profile("ci", derandomize=True, print_blob=True)
+if os.environ.get("CI"):
+    settings.load_profile("ci")
 
 sys.path.insert(0, str(Path(__file__).parent))
 

@@ -434,3 +434,12 @@ def test_extreme_magnitudes_round_trip():
     assert _row(res.table, "huge", "tiny", "pearson")["estimate"] == pytest.approx(ref, abs=1e-12)
     ns = run_code(res.code("df"), frame)
     assert_same_table(ns["links"], res.table)
+
+
+def test_strength_label_is_stable_on_a_threshold():
+    """An estimate on a threshold (here 0.5, up to float noise) gets one label on every route:
+    found by hypothesis, where the fast ranks and pandas' corr differed in the last bit."""
+    from nbeda.stats.links import strength_label
+
+    labels = strength_label(np.array([0.5 - 1e-15, 0.5, 0.5 + 1e-15, -0.3 + 1e-16, 0.1 - 2e-16]))
+    assert list(labels) == ["strong", "strong", "strong", "moderate", "weak"]

@@ -178,8 +178,12 @@ def bh_adjust(p):
 
 
 def strength_label(estimate):
-    """Plain-words strength of |estimate| (common practice, after Cohen 1988)."""
-    a = np.abs(np.asarray(estimate, dtype="float64"))
+    """Plain-words strength of |estimate| (common practice, after Cohen 1988).
+
+    |estimate| is rounded to 9 decimals first, so an estimate that sits on a threshold
+    gets the same label whichever exact route (fast ranks or pandas ``corr``) computed it.
+    """
+    a = np.round(np.abs(np.asarray(estimate, dtype="float64")), 9)
     labels = np.select(
         [a < 0.1, a < 0.3, a < 0.5, a < 0.7, a >= 0.7],
         ["negligible", "weak", "moderate", "strong", "very strong"],
@@ -455,9 +459,10 @@ def fast_pearson(x: np.ndarray, chunk: int = 16384) -> tuple[np.ndarray, np.ndar
             b = x[s0:s0 + chunk] / big
             d = np.where(np.isnan(b), 0.0, b - mean)
             ss += (d * d).sum(axis=0)
-    scale = np.sqrt(ss / np.maximum(cnt, 1)) * big
+    # stay in the scaled units (values / big): multiplying back would underflow for
+    # subnormal magnitudes and overflow near the float limit
+    scale = np.sqrt(ss / np.maximum(cnt, 1))
     scale = np.where(scale > 0, scale, 1.0)
-    mean = mean * big
     nobs = np.zeros((k, k))
     sx = np.zeros((k, k))
     sxx = np.zeros((k, k))
@@ -469,7 +474,7 @@ def fast_pearson(x: np.ndarray, chunk: int = 16384) -> tuple[np.ndarray, np.ndar
 
     with limit:
         for s0 in range(0, n, chunk):
-            b = x[s0:s0 + chunk]
+            b = x[s0:s0 + chunk] / big
             pf = (~np.isnan(b)).astype("float64")
             z = np.where(pf > 0, (b - mean) / scale, 0.0)
             nobs += mm(pf, pf)
@@ -846,7 +851,9 @@ def links_code(ctx: Context, info: dict[str, Any], frame_name: str = "df") -> st
     if info["need_p"]:
         corr_lines += ('    pearson[np.ix_(corr_cols, corr_cols)] = values.corr(method="pearson").to_numpy()\n')
     if info["need_s"]:
-        corr_lines += ('    spearman[np.ix_(corr_cols, corr_cols)] = values.corr(method="spearman").to_numpy()\n')
+        corr_lines += ('    # ranks do not depend on scale: Spearman on the values as they are\n'
+                       '    spearman[np.ix_(corr_cols, corr_cols)] = '
+                       'pd.DataFrame(num[:, corr_cols]).corr(method="spearman").to_numpy()\n')
     body += f"""\
 inputs = [column_inputs(frame.iloc[:, i], kind) for i, _, _, kind in columns]
 labels = [label for _, label, _, _ in columns]
