@@ -45,5 +45,5 @@ def test_section_results_share_the_contract(demo_frame):
         assert isinstance(result.table, pd.DataFrame)
         assert result.name == name
         code = result.code("df")
-        # the code assigns the section's own name at top level (alone or in a tuple)
-        assert re.search(rf"^(\w+, )*{name}(, \w+)* = ", code, flags=re.M), name
+        # the code assigns the section's own name (alone or in a tuple; possibly inside a `with` block)
+        assert re.search(rf"^\s*(\w+, )*{name}(, \w+)* = ", code, flags=re.M), name

@@ -281,6 +281,11 @@ gaps_mcar = little_mcar(x, names=[{frame_name}.columns[j] for j in numeric], see
 # Which columns go missing together: correlation of the 0/1 missing indicators.
 gaps_nullity = nullity_correlation({frame_name}.isna().to_numpy(dtype=bool), list({frame_name}.columns))
 """
+        # Degenerate columns (constant, all missing) give undefined values, shown blank: keep
+        # numpy quiet about them, as the tab itself does, without touching global settings.
+        body = "with np.errstate(all=\"ignore\"):\n" + "\n".join(
+            ("    " + line) if line else line for line in body.splitlines()
+        ) + "\n"
         convert = self.code_convert(frame_name)
         convert = "\n".join(("# " + line) if line and not line.startswith("#") else line for line in convert.splitlines())
         return join_blocks(
