@@ -20,7 +20,7 @@ import time
 from pathlib import Path
 from typing import Any
 
-from nbeda._parse import OptionError, parse_roles, resolve_column
+from nbeda._parse import OptionError, report_options
 
 __all__ = ["main", "read_data", "reader_for"]
 
@@ -78,20 +78,6 @@ def read_data(path: str | os.PathLike[str]) -> Any:
     if not isinstance(frame, pd.DataFrame):  # read_json may give a Series
         frame = pd.DataFrame(frame)
     return frame
-
-
-def _column(frame: Any, name: str, what: str) -> Any:
-    try:
-        return resolve_column(frame, name, what)
-    except OptionError as exc:
-        raise CliError(str(exc)) from None
-
-
-def _roles(text: str | None, frame: Any) -> dict[Any, str]:
-    try:
-        return parse_roles(text, frame)
-    except OptionError as exc:
-        raise CliError(str(exc)) from None
 
 
 def script_text(report: Any, data_path: str | os.PathLike[str]) -> str:
@@ -199,24 +185,16 @@ def main(argv: list[str] | None = None) -> int:
         say(f"reading {args.data} …")
         frame = read_data(args.data)
         say(f"read {frame.shape[0]:,} rows × {frame.shape[1]:,} columns")
-        by = _column(frame, args.by, "--by") if args.by else None
-        target = _column(frame, args.target, "--target") if args.target else None
-        roles = _roles(args.roles, frame)
+        try:
+            options = report_options(frame, args)
+        except OptionError as exc:
+            raise CliError(str(exc)) from None
 
         from nbeda.report import Report
         from nbeda.standalone import report_html
 
         try:
-            report = Report(
-                frame,
-                roles=roles,
-                by=by,
-                target=target,
-                sample=args.sample,
-                confidence=args.confidence,
-                seed=args.seed,
-                frame_name="df",
-            )
+            report = Report(frame, **options, frame_name="df")
         except (KeyError, ValueError, TypeError) as exc:
             raise CliError(str(exc.args[0] if exc.args else exc)) from None
         page = report_html(

@@ -8,7 +8,7 @@ import pandas as pd
 
 from nbeda._context import ROLES
 
-__all__ = ["OptionError", "resolve_column", "parse_roles"]
+__all__ = ["OptionError", "resolve_column", "parse_roles", "report_options"]
 
 
 class OptionError(ValueError):
@@ -41,3 +41,15 @@ def parse_roles(text: str | None, frame: pd.DataFrame) -> dict[Any, str]:
             raise OptionError(f"--roles: unknown role {role!r} for {col.strip()!r}; roles are: {', '.join(ROLES)}")
         out[resolve_column(frame, col.strip(), "--roles")] = role
     return out
+
+
+def report_options(frame: pd.DataFrame, args: Any) -> dict[str, Any]:
+    """The Report keyword options from parsed ``--by --target --roles --sample --confidence --seed``."""
+    return {
+        "roles": parse_roles(args.roles, frame),
+        "by": resolve_column(frame, args.by, "--by") if args.by else None,
+        "target": resolve_column(frame, args.target, "--target") if args.target else None,
+        "sample": args.sample,
+        "confidence": args.confidence,
+        "seed": args.seed,
+    }

@@ -11,7 +11,7 @@ from IPython.core.magic import Magics, cell_magic, line_magic, magics_class
 from IPython.core.magic_arguments import argument, magic_arguments, parse_argstring
 from IPython.display import display
 
-from nbeda._parse import OptionError, resolve_column
+from nbeda._parse import OptionError, report_options
 from nbeda._parse import parse_roles as _parse_roles
 from nbeda.report import Report, normalise_tab
 from nbeda.sections import SECTIONS
@@ -43,13 +43,6 @@ def split_line(line: str) -> tuple[str, str]:
             return line[:i].strip(), line[i:].strip()
         i += 1
     return line.strip(), ""
-
-
-def _resolve_column(frame: pd.DataFrame, name: str, what: str = "") -> Any:
-    try:
-        return resolve_column(frame, name, what)
-    except OptionError as exc:
-        raise UsageError(str(exc)) from None
 
 
 def parse_roles(text: str | None, frame: pd.DataFrame) -> dict[Any, str]:
@@ -161,9 +154,10 @@ class EdaMagics(Magics):
             raise
         except SystemExit:  # argparse's own exit on bad input
             raise UsageError(f"bad options: {opts!r}; see %eda?") from None
-        by = _resolve_column(frame, args.by, "--by") if args.by else None
-        target = _resolve_column(frame, args.target, "--target") if args.target else None
-        roles = parse_roles(args.roles, frame)
+        try:
+            options = report_options(frame, args)
+        except OptionError as exc:
+            raise UsageError(str(exc)) from None
         try:
             tab = normalise_tab(args.tab) if args.tab else None
             code_tab = normalise_tab(args.code) if args.code else None
@@ -172,12 +166,7 @@ class EdaMagics(Magics):
         try:
             report = Report(
                 frame,
-                roles=roles,
-                by=by,
-                target=target,
-                sample=args.sample,
-                confidence=args.confidence,
-                seed=args.seed,
+                **options,
                 tab=tab,
                 frame_name=frame_name,
                 frame_expr=frame_expr,
