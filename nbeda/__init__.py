@@ -14,9 +14,17 @@ from nbeda._context import ROLES
 from nbeda.report import Report
 from nbeda.sections import SECTIONS
 
-__all__ = ["ROLES", "SECTIONS", "Report", "demo", "options", "load_ipython_extension", "__version__"]
+__all__ = ["ROLES", "SECTIONS", "Report", "demo", "options", "source", "load_ipython_extension", "__version__"]
 
 __version__ = "0.1.0"
+
+
+def source(data: Any, **options: Any) -> Report:
+    """The report of data that stay in an engine: a Parquet/CSV path or glob (embedded DuckDB),
+    an ibis table or a PySpark DataFrame. See :func:`nbeda.engine.source`."""
+    from nbeda.engine import source as _source
+
+    return _source(data, **options)  # type: ignore[no-any-return]
 
 
 def load_ipython_extension(ipython: Any) -> None:

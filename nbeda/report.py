@@ -46,8 +46,18 @@ class Report:
     ) -> None:
         if isinstance(frame, pd.Series):
             frame = frame.to_frame(name=frame.name if frame.name is not None else 0)
+        #: the engine side when the data live in an engine (``nbeda.source``), else None
+        self.engine: Any = None
         if not isinstance(frame, pd.DataFrame):
-            raise TypeError(f"nbeda reports on a pandas DataFrame, not {type(frame).__name__}")
+            from nbeda.engine._source import EngineSource
+
+            if not isinstance(frame, EngineSource):
+                raise TypeError(f"nbeda reports on a pandas DataFrame, not {type(frame).__name__}")
+            from nbeda.engine._run import EngineRun
+
+            self.engine = EngineRun(frame, seed=seed)
+            frame = self.engine.sample()  # bounded by the source's sample_rows
+            sample = None  # the sample is already drawn: sections use all of it
         options = Options(
             roles=dict(roles or {}), by=by, target=target, sample=sample, confidence=confidence, seed=seed
         )
@@ -73,7 +83,10 @@ class Report:
         key = normalise_tab(name)
         cache_key = (key, tuple(sorted((k, _hashable(v)) for k, v in kwargs.items())))
         if cache_key not in self._cache:
-            self._cache[cache_key] = builder(key)(self.ctx, **kwargs)
+            result = builder(key)(self.ctx, **kwargs)
+            if self.engine is not None:
+                result = self.engine.overlay(key, result)
+            self._cache[cache_key] = result
         return self._cache[cache_key]
 
     def roles(self) -> Any:
@@ -129,6 +142,8 @@ class Report:
 
     # ------------------------------------------------------------------ display
     def header_text(self) -> str:
+        if self.engine is not None:
+            return str(self.engine.header_text())
         f = self.frame
         try:
             dup = int(f.duplicated().sum()) if f.shape[1] else 0

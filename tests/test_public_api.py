@@ -11,7 +11,7 @@ import nbeda
 
 def test_top_level_all():
     assert sorted(nbeda.__all__) == sorted(
-        ["ROLES", "SECTIONS", "Report", "demo", "options", "load_ipython_extension", "__version__"]
+        ["ROLES", "SECTIONS", "Report", "demo", "options", "source", "load_ipython_extension", "__version__"]
     )
     assert nbeda.SECTIONS == ("roles", "spread", "shape", "gaps", "extremes", "links", "segments")
     assert nbeda.ROLES == (

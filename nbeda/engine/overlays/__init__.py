@@ -1,0 +1,1 @@
+"""Per-section overlays: engine numbers replacing sample numbers (one module per tab)."""
