@@ -84,6 +84,13 @@ def script_text(report: Any, data_path: str | os.PathLike[str]) -> str:
     """The whole analysis as a plain pandas script that loads ``data_path`` itself."""
     from nbeda import __version__
 
+    if report.engine is not None:  # each block reopens the data in the engine itself
+        return (
+            f"# Exploratory analysis of {str(data_path)!r}, written by nbeda {__version__}.\n"
+            "# ibis (over DuckDB) for the all-row numbers, pandas/numpy/scipy on a seeded sample for\n"
+            "# the rest; nbeda is not needed to run it.\n\n" + report.all_code(frame_name="t").rstrip("\n") + "\n"
+        )
+
     reader, kwargs = reader_for(data_path)
     path = str(Path(data_path).resolve())
     args = "".join(f", {k}={v!r}" for k, v in kwargs.items())
@@ -140,6 +147,13 @@ def _parser() -> argparse.ArgumentParser:
     p.add_argument("--title", default=None, help="title of the report page")
     p.add_argument("--code", default=None, metavar="SCRIPT.py", help="also write the whole analysis as a pandas script")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress on stderr")
+    p.add_argument(
+        "--engine", choices=("duckdb",), default=None,
+        help="leave the data in embedded DuckDB (needs nbeda[duckdb]): only aggregates and a seeded "
+        "sample are loaded; implied by a glob or a folder of Parquet files",
+    )
+    p.add_argument("--memory-limit", default=None, help="--engine: DuckDB memory limit (default 1GB)")
+    p.add_argument("--approximate", action="store_true", help="--engine: approximate quantiles and distinct counts")
     return p
 
 
@@ -182,11 +196,27 @@ def main(argv: list[str] | None = None) -> int:
             Options(sample=args.sample, confidence=args.confidence, seed=args.seed)
         except (ValueError, TypeError) as exc:
             raise CliError(str(exc)) from None
-        say(f"reading {args.data} …")
-        frame = read_data(args.data)
-        say(f"read {frame.shape[0]:,} rows × {frame.shape[1]:,} columns")
+        engine = args.engine or ("*" in args.data or os.path.isdir(args.data))
+        if not engine and (args.memory_limit or args.approximate):
+            raise CliError("--memory-limit and --approximate apply with --engine duckdb")
+        if engine:
+            from nbeda.engine._run import cli_progress
+            from nbeda.engine._source import EngineError, open_source
+
+            try:
+                frame: Any = open_source(args.data, memory_limit=args.memory_limit,
+                                         exact=False if args.approximate else None, sample_rows=args.sample)
+            except (EngineError, ModuleNotFoundError) as exc:
+                raise CliError(str(exc)) from None
+            columns = frame.columns_frame()
+            say(f"opened {args.data} in DuckDB ({len(columns.columns):,} columns); the data stay there")
+        else:
+            say(f"reading {args.data} …")
+            frame = read_data(args.data)
+            say(f"read {frame.shape[0]:,} rows × {frame.shape[1]:,} columns")
+            columns = frame
         try:
-            options = report_options(frame, args)
+            options = report_options(columns, args)
         except OptionError as exc:
             raise CliError(str(exc)) from None
 
@@ -194,9 +224,13 @@ def main(argv: list[str] | None = None) -> int:
         from nbeda.standalone import report_html
 
         try:
-            report = Report(frame, **options, frame_name="df")
+            report = Report(frame, **options, frame_name="t" if engine else "df")
         except (KeyError, ValueError, TypeError) as exc:
             raise CliError(str(exc.args[0] if exc.args else exc)) from None
+        if report.engine is not None and not args.quiet:
+            report.engine.progress = lambda text: print(f"\n  engine: {text} …", end="", file=sys.stderr,
+                                                        flush=True)
+            del cli_progress
         page = report_html(
             report,
             title=args.title or f"Exploratory report: {Path(args.data).name}",

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import ast
+import os
 from typing import Any
 
 import pandas as pd
@@ -16,7 +17,7 @@ from nbeda._parse import parse_roles as _parse_roles
 from nbeda.report import Report, normalise_tab
 from nbeda.sections import SECTIONS
 
-__all__ = ["EdaMagics", "split_line", "parse_roles", "FRAME_NAME"]
+__all__ = ["EdaMagics", "split_line", "parse_roles", "looks_like_path", "is_engine_table", "FRAME_NAME"]
 
 #: Name the emitted code gives a frame that came from an expression (``%eda df[df.x > 0]``).
 FRAME_NAME = "eda_frame"
@@ -73,6 +74,9 @@ class EdaMagics(Magics):
         choices=("static", "interactive"),
         help="static SVG charts (default) or interactive ones, both offline (e.g. --charts interactive)",
     )
+    @argument("--memory-limit", default=None, help="engine sources: DuckDB memory limit (default 1GB)")
+    @argument("--approximate", action="store_true", help="engine sources: approximate quantiles and distinct counts")
+    @argument("--exact", action="store_true", help="engine sources: exact quantiles and distinct counts (Spark)")
     @line_magic
     def eda(self, line: str = "") -> Any:
         """Exploratory report of a DataFrame: ``%eda df [options]``.
@@ -88,11 +92,21 @@ class EdaMagics(Magics):
             %eda df --code spread        # code of the Spread tab in a new cell
             %eda df --all-code           # the whole analysis as one cell
             %eda df --charts interactive # charts with tooltips (still offline)
+
+        Data too big for memory stay in an engine (needs ``nbeda[duckdb]``)::
+
+            %eda readings/*.parquet      # Parquet or CSV files, a glob or a folder
+            %eda tbl                     # an ibis table or a PySpark DataFrame
+            %eda readings.parquet --memory-limit 2GB --sample 200000
         """
         expr, opts = split_line(line)
         if not expr:
             raise UsageError("usage: %eda <DataFrame expression> [options]; see %eda?")
+        if looks_like_path(expr):
+            return self._run(_unquote(expr), opts, frame_name="t")
         frame = self._evaluate(expr)
+        if not isinstance(frame, pd.DataFrame):  # a path held in a variable, an ibis table, a Spark frame
+            return self._run(frame, opts, frame_name=expr if expr.isidentifier() else "t")
         if expr.isidentifier():
             return self._run(frame, opts, frame_name=expr)
         # An expression: the code first assigns it to a name of its own (never over the user's df).
@@ -109,6 +123,9 @@ class EdaMagics(Magics):
     @argument("--code", default=None, metavar="TAB")
     @argument("--all-code", action="store_true")
     @argument("--charts", default=None, choices=("static", "interactive"))
+    @argument("--memory-limit", default=None)
+    @argument("--approximate", action="store_true")
+    @argument("--exact", action="store_true")
     @cell_magic("eda")
     def eda_cell(self, line: str, cell: str) -> Any:
         """``%%eda [options]``: run the cell and report on the frame its last expression returns."""
@@ -130,7 +147,7 @@ class EdaMagics(Magics):
         return self._run(frame, line, frame_name=FRAME_NAME, frame_expr=" ".join(source.split()))
 
     # ------------------------------------------------------------------ helpers
-    def _evaluate(self, expr: str) -> pd.DataFrame:
+    def _evaluate(self, expr: str) -> Any:
         try:
             value = self.shell.ev(expr)
         except NameError as exc:
@@ -140,22 +157,33 @@ class EdaMagics(Magics):
         return self._check_frame(value, repr(expr))
 
     @staticmethod
-    def _check_frame(value: Any, what: str) -> pd.DataFrame:
+    def _check_frame(value: Any, what: str) -> Any:
         if isinstance(value, pd.Series):
             return value.to_frame(name=value.name if value.name is not None else 0)
+        if isinstance(value, (str, os.PathLike)) or is_engine_table(value):
+            return value
         if not isinstance(value, pd.DataFrame):
-            raise UsageError(f"{what} is a {type(value).__name__}, not a pandas DataFrame")
+            raise UsageError(
+                f"{what} is a {type(value).__name__}, not a pandas DataFrame "
+                "(nor a file path, an ibis table or a PySpark DataFrame)"
+            )
         return value
 
-    def _run(self, frame: pd.DataFrame, opts: str, frame_name: str, frame_expr: str | None = None) -> Any:
+    def _run(self, frame: Any, opts: str, frame_name: str, frame_expr: str | None = None) -> Any:
         try:
             args = parse_argstring(self.eda, opts)
         except UsageError:
             raise
         except SystemExit:  # argparse's own exit on bad input
             raise UsageError(f"bad options: {opts!r}; see %eda?") from None
+        if not isinstance(frame, pd.DataFrame):
+            frame = self._open(frame, args)
+            frame_expr = None
+        elif args.memory_limit or args.approximate or args.exact:
+            raise UsageError("--memory-limit, --approximate and --exact apply to engine sources "
+                             "(a file path, an ibis table or a PySpark DataFrame), not to a pandas DataFrame")
         try:
-            options = report_options(frame, args)
+            options = report_options(frame if isinstance(frame, pd.DataFrame) else frame.columns_frame(), args)
         except OptionError as exc:
             raise UsageError(str(exc)) from None
         try:
@@ -184,3 +212,43 @@ class EdaMagics(Magics):
 
         display(ReportWidget(report, charts=args.charts))
         return None
+
+    @staticmethod
+    def _open(value: Any, args: Any) -> Any:
+        """An engine source for a path, an ibis table or a Spark frame (UsageError when it fails)."""
+        from nbeda.engine._source import EngineError, open_source
+
+        if args.approximate and args.exact:
+            raise UsageError("give --approximate or --exact, not both")
+        exact = False if args.approximate else (True if args.exact else None)
+        try:
+            return open_source(value, memory_limit=args.memory_limit, exact=exact, sample_rows=args.sample)
+        except (EngineError, ModuleNotFoundError, TypeError, ValueError) as exc:
+            raise UsageError(str(exc)) from None
+
+
+_PATH_SUFFIXES = (".parquet", ".pq", ".parq", ".csv", ".tsv", ".csv.gz", ".tsv.gz")
+
+
+def _unquote(expr: str) -> str:
+    e = expr.strip()
+    if len(e) >= 2 and e[0] == e[-1] and e[0] in "'\"":
+        return e[1:-1]
+    return e
+
+
+def looks_like_path(expr: str) -> bool:
+    """True for ``data/x.parquet``, ``'x.csv'``, ``readings/*.parquet`` or an existing folder."""
+    e = _unquote(expr)
+    if not e or any(ch in e for ch in "()[]{}=,"):
+        return False
+    low = e.lower()
+    return low.endswith(_PATH_SUFFIXES) or "*" in e or (os.sep in e and os.path.exists(e))
+
+
+def is_engine_table(value: Any) -> bool:
+    """An ibis table or a PySpark DataFrame (checked by module name: neither is imported here)."""
+    mod = type(value).__module__ or ""
+    return (mod.startswith("ibis.") and hasattr(value, "schema")) or (
+        mod.startswith("pyspark.") and hasattr(value, "sparkSession")
+    )

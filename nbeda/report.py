@@ -115,7 +115,13 @@ class Report:
             from nbeda.sections.links import build_trend
         except ModuleNotFoundError:
             raise NotImplementedError("trend() arrives with the Links tab (see the Links issue).") from None
-        return build_trend(self.ctx, x, y, by=by)
+        result = build_trend(self.ctx, x, y, by=by)
+        if self.engine is not None and not self.engine.sample_is_all:
+            result.notes.append(
+                f"Computed on the report's seeded sample ({self.engine.sample_label()}): the fit, "
+                "Cook's distances and the reversal check use sampled rows only."
+            )
+        return result
 
     # --------------------------------------------------------------------- code
     def code(self, tab: str, frame_name: str | None = None) -> str:

@@ -162,7 +162,8 @@ def code_panel_html(code: str, tab: str, frame_name: str = "df", *, live: bool =
 def status_html(kind: str, title: str, exc: BaseException | None = None, message: str = "") -> str:
     """A status box: ``kind`` is ``computing``, ``unavailable`` or ``error``."""
     if kind == "computing":
-        return f"<div class='nbeda nb-status'><span class='nb-spinner'></span>Computing {esc(title)}…</div>"
+        what = esc(message) if message else f"Computing {esc(title)}…"
+        return f"<div class='nbeda nb-status'><span class='nb-spinner'></span>{what}</div>"
     if kind == "unavailable":
         text = message or (str(exc) if exc is not None else "")
         return (

@@ -147,6 +147,13 @@ class ReportWidget(widgets.VBox):  # type: ignore[misc]
         title = TITLES[name]
         self.state[name] = "computing"
         box.children = [widgets.HTML(_STYLE + status_html("computing", title))]
+        engine = getattr(self.report, "engine", None)
+        if engine is not None:  # long engine queries: say which one is running
+
+            def progress(text: str) -> None:
+                box.children = [widgets.HTML(_STYLE + status_html("computing", title, message=f"{title}: {text} …"))]
+
+            engine.progress = progress
         try:
             result = self.report.section(name)
         except KeyboardInterrupt:  # the user stopped the kernel: leave the tab ready for another try

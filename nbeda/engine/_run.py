@@ -13,6 +13,7 @@ from __future__ import annotations
 import importlib
 import sys
 import time
+import warnings
 from collections.abc import Callable
 from typing import Any
 
@@ -58,7 +59,10 @@ class EngineRun:
             self.progress(what)
         start = time.perf_counter()
         try:
-            out = expr.to_pandas()
+            with warnings.catch_warnings():  # ibis 12 under pandas 3 / duckdb 2 warns about its own calls
+                warnings.filterwarnings("ignore", message=".*infer_string.*")
+                warnings.filterwarnings("ignore", message=".*fetch_arrow_table.*", category=DeprecationWarning)
+                out = expr.to_pandas()
         except Exception as exc:
             if _is_memory_error(exc):
                 raise EngineMemoryError(f"the engine ran out of memory computing {what}: {exc}") from exc

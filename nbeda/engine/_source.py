@@ -56,6 +56,12 @@ class EngineSource:
     open_lines: list[str] = field(default_factory=list)
     paths: list[str] = field(default_factory=list)
 
+    def columns_frame(self) -> Any:
+        """An empty pandas frame with the source's columns (to check column options against)."""
+        import pandas as pd
+
+        return pd.DataFrame(columns=list(self.table.columns))
+
     def open_code(self, frame_name: str) -> str:
         return "\n".join(line.replace("{name}", frame_name) for line in self.open_lines) + "\n"
 
@@ -185,7 +191,7 @@ def _open_path(path: str, memory_limit: str, exact: bool | None, sample_rows: in
 def _open_spark(df: Any, exact: bool | None, sample_rows: int) -> EngineSource:
     ibis = require_extra("ibis", "spark")
     require_extra("pyspark", "spark")
-    view = f"nbeda_source_{id(df):x}"
+    view = f"eda_source_{id(df):x}"
     df.createOrReplaceTempView(view)
     con = ibis.pyspark.connect(session=df.sparkSession)
     t = con.table(view)
