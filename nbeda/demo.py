@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-__all__ = ["greenhouse", "SITES", "CROPS"]
+__all__ = ["greenhouse", "write_parquet", "SITES", "CROPS"]
 
 SITES = ("Northgate", "Riverside", "Hilltop", "Eastfield", "Old Mill")
 #: Uneven site sizes (shares of rows).
@@ -120,3 +120,39 @@ def greenhouse(n: int = 5000, seed: int = 0) -> pd.DataFrame:
         }
     )
     return frame
+
+
+def write_parquet(path: str, n: int = 10_000_000, seed: int = 0, chunk: int = 1_000_000) -> str:
+    """Write the greenhouse demo at ``n`` rows to one Parquet file, in chunks (bounded memory).
+
+    Chunk k is ``greenhouse(chunk, seed=seed + k)`` with ``plot_id`` renumbered so ids stay
+    distinct across chunks and ``soil_grade`` stored as text (Parquet keeps no pandas order).
+    Needs pyarrow (extra ``parquet`` or ``duckdb``). Returns ``path``; an existing file is kept.
+    """
+    import os
+
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    if os.path.exists(path):
+        return path
+    tmp = f"{path}.partial"
+    writer = None
+    try:
+        done, k = 0, 0
+        while done < n:
+            size = min(chunk, n - done)
+            part = greenhouse(size, seed=seed + k)
+            part["plot_id"] = pd.Series(range(done + 1, done + size + 1)).map("GH-{:08d}".format).to_numpy()
+            part["soil_grade"] = part["soil_grade"].astype("str")
+            table = pa.Table.from_pandas(part, preserve_index=False)
+            if writer is None:
+                writer = pq.ParquetWriter(tmp, table.schema)
+            writer.write_table(table)
+            done += size
+            k += 1
+    finally:
+        if writer is not None:
+            writer.close()
+    os.replace(tmp, path)
+    return path

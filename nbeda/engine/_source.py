@@ -167,7 +167,12 @@ def _open_path(path: str, memory_limit: str, exact: bool | None, sample_rows: in
         for p in paths:
             if os.path.getsize(p) == 0:
                 raise EngineError(f"the file {p!r} is empty (0 bytes)")
-    kwargs: dict[str, Any] = {"memory_limit": memory_limit}
+    # DuckDB spills beyond the limit to ``.tmp`` in the working directory unless told otherwise:
+    # keep the user's folder clean.
+    import tempfile
+
+    spill = os.path.join(tempfile.gettempdir(), "duckdb-spill")
+    kwargs: dict[str, Any] = {"memory_limit": memory_limit, "temp_directory": spill}
     if threads:
         kwargs["threads"] = int(threads)
     con = ibis.duckdb.connect(**kwargs)
