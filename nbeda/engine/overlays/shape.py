@@ -1,0 +1,197 @@
+"""Shape on the engine path: counts, skewness, kurtosis and quartile measures over all rows.
+
+Exact (or, on approximate engines, labelled approximate) columns: n, missing,
+infinite, skew, skew_se, kurtosis, kurtosis_se, quartile_skew,
+mean_minus_median, dagostino_stat/dagostino_p, and the headline normality test
+when n > 5000 (then D'Agostino–Pearson K², a function of n, G1 and G2 only).
+``reading`` is rebuilt from the all-row skew, kurtosis, quartile skew and
+distinct count, keeping the sample's word on piling at a limit and on density
+peaks.  Shapiro–Wilk, Anderson–Darling, transforms and modes come from the
+seeded sample and say so.
+
+G1 and G2 come from the engine's two-pass sums about the first-pass mean
+(n, s1, m2, m3, m4), recentred exactly on the refined mean d = s1/n by the
+binomial expansion (Σ(e−d)² = m2 − s1·d, Σ(e−d)³ = m3 − 3d·m2 + 3d²·s1 − n·d³,
+Σ(e−d)⁴ = m4 − 4d·m3 + 6d²·m2 − 4d³·s1 + n·d⁴).  Columns whose values are too
+large or too small for fourth powers in float64 (largest |x| beyond 2⁶⁰ or below
+2⁻⁶⁰) are summed again after scaling by an exact power of two, as the in-memory
+path does; every statistic here is scale-free (mean − median is scaled back).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import ibis
+import numpy as np
+import pandas as pd
+
+from nbeda.engine import aggregates
+from nbeda.stats._codegen import function_source
+from nbeda.stats.shape import SAMPLE_MAX, dagostino_k2
+
+__all__ = ["scaled_moments", "exact_shape", "apply", "code"]
+
+_EXACT = ["n", "missing", "infinite", "skew", "skew_se", "kurtosis", "kurtosis_se", "mean_minus_median",
+          "dagostino_stat", "dagostino_p"]
+
+
+def scaled_moments(t, agg, run=None, limit=60):
+    """``column_stats`` rows with an exact power-of-two scale for very large or very small values.
+
+    For numeric columns whose largest |finite value| lies beyond 2**limit or below
+    2**-limit (or whose moments overflowed), the two passes are run again on
+    y = x * 2**-e (e = the binary exponent of that largest value, as numpy.frexp gives):
+    mean0, s1, m2, m3, m4 are then sums of y; ``scale_exp`` = e (0 elsewhere).
+    """
+    run = run or (lambda expr, what: expr.to_pandas())
+    out = agg.copy()
+    out["scale_exp"] = 0
+    for c in out.index:
+        a = out.loc[c]
+        if a["kind"] != "number" or not a["count"] > 0:
+            continue
+        amax = max(abs(float(a["min"])), abs(float(a["max"])))
+        e = int(np.frexp(amax)[1]) if amax > 0 else 0
+        sums_ok = all(np.isfinite(float(a[k])) for k in ("mean0", "s1", "m2", "m3", "m4") if k in a.index)
+        if -limit <= e <= limit and sums_ok:
+            continue
+        x = t[c].cast("float64")
+        if t.schema()[c].is_floating():
+            x = (x.isnan() | x.isinf()).ifelse(ibis.null("float64"), x)
+        y = x * ibis.literal(float(np.ldexp(1.0, -e)), type="float64")
+        total = run(t.aggregate(s=y.sum()), f"scaled sum of {c}")["s"].iloc[0]
+        mean0 = float(total) / float(a["count"])
+        d = y - ibis.literal(mean0, type="float64")
+        got = run(t.aggregate(s1=d.sum(), m2=(d * d).sum(), m3=(d * d * d).sum(), m4=(d * d * d * d).sum()),
+                  f"scaled moments of {c}").iloc[0]
+        out.loc[c, ["mean0", "s1", "m2", "m3", "m4"]] = [mean0] + [float(got[k]) for k in ("s1", "m2", "m3", "m4")]
+        out.loc[c, "mean"] = mean0 + float(got["s1"]) / float(a["count"])
+        out.loc[c, "scale_exp"] = e
+    return out
+
+
+def exact_shape(shape, agg, quartiles, k2, sample_max=5000):
+    """The Shape table with the engine's all-row numbers in place of the sample's.
+
+    ``agg`` is ``scaled_moments(column_stats(...))`` (two-pass sums about the first-pass
+    mean, of values scaled by 2**-scale_exp); ``quartiles`` is ``column_quantiles`` at
+    0.25, 0.5, 0.75; ``k2`` is ``dagostino_k2(g1, g2, n)``.  G1 and G2 use the sums
+    recentred exactly on the refined mean (binomial expansion with d = s1/n).
+    """
+    out = shape.copy()
+    nan = float("nan")
+    a = agg.reindex(out.index)
+    q = quartiles.reindex(out.index)
+    cols = {k: [] for k in ("n", "missing", "infinite", "skew", "skew_se", "kurtosis", "kurtosis_se",
+                            "quartile_skew", "mean_minus_median", "dagostino_stat", "dagostino_p",
+                            "normality_test", "normality_stat", "normality_p", "reading")}
+    for c in out.index:
+        n = int(a.at[c, "count"])
+        lo, hi = float(a.at[c, "min"]), float(a.at[c, "max"])
+        row = dict.fromkeys(cols, nan)
+        row.update(n=n, missing=int(a.at[c, "missing"]), infinite=int(a.at[c, "n_inf"]), reading="")
+        row["normality_test"] = out.at[c, "normality_test"]
+        row["normality_stat"], row["normality_p"] = out.at[c, "normality_stat"], out.at[c, "normality_p"]
+        if n >= 3 and lo < hi:  # as shape_of: no shape for fewer than 3 values or a constant column
+            e = int(a.at[c, "scale_exp"])
+            s1, m2, m3, m4 = (float(a.at[c, k]) for k in ("s1", "m2", "m3", "m4"))
+            d = s1 / n
+            c2 = m2 - s1 * d
+            c3 = m3 - 3.0 * d * m2 + 3.0 * d * d * s1 - n * d**3
+            c4 = m4 - 4.0 * d * m3 + 6.0 * d * d * m2 - 4.0 * d**3 * s1 + n * d**4
+            b2, b3, b4 = c2 / n, c3 / n, c4 / n
+            g1 = g2 = nan
+            if b2 > 0:
+                g1 = b3 / b2**1.5 * np.sqrt(n * (n - 1.0)) / (n - 2.0)
+                if n >= 4:
+                    g2 = ((n + 1.0) * b4 / b2**2 - 3.0 * (n - 1.0)) * (n - 1.0) / ((n - 2.0) * (n - 3.0))
+            row["skew"], row["kurtosis"] = float(g1), float(g2)
+            row["skew_se"] = float(np.sqrt(6.0 * n * (n - 1) / ((n - 2.0) * (n + 1.0) * (n + 3.0))))
+            if n >= 4:
+                row["kurtosis_se"] = float(2.0 * row["skew_se"] * np.sqrt((n * n - 1.0) / ((n - 3.0) * (n + 5.0))))
+            q1, q2, q3 = float(q.at[c, 0.25]), float(q.at[c, 0.5]), float(q.at[c, 0.75])
+            if q3 > q1:
+                row["quartile_skew"] = float((q3 + q1 - 2.0 * q2) / (q3 - q1))
+            mean_y = float(a.at[c, "mean0"]) + d  # the mean of the (scaled) values
+            row["mean_minus_median"] = float(np.ldexp(mean_y - np.ldexp(q2, -e), e))
+            if n >= 20:
+                row["dagostino_stat"], row["dagostino_p"] = k2(g1, g2, n)
+            if n > sample_max:  # the headline test: K2 on all values (Shapiro-Wilk above 5000 is on a sample)
+                row["normality_test"] = "D'Agostino-Pearson K2"
+                row["normality_stat"], row["normality_p"] = row["dagostino_stat"], row["dagostino_p"]
+            # The plain-words reading (rules of shape_of): skew, tails and distinct values from all
+            # rows; piling at a limit and density peaks as read on the sample.
+            words = []
+            mmm = row["mean_minus_median"]
+            above = "mean above median" if mmm > 0 else ("mean below median" if mmm < 0 else "mean = median")
+            if not g1 == g1:
+                words.append("skew undefined")
+            elif abs(g1) < 0.5:
+                words.append("roughly symmetric")
+            else:
+                side = "right" if g1 > 0 else "left"
+                words.append(f"{'strongly' if abs(g1) >= 1 else 'moderately'} {side}-skewed ({above})")
+            qs = row["quartile_skew"]
+            if g1 == g1 and abs(g1) >= 1 and qs == qs and abs(qs) < 0.05:
+                words.append("skew comes from a few extreme values (the quartiles are symmetric)")
+            if g2 == g2 and g2 > 1:
+                words.append("heavy-tailed")
+            elif g2 == g2 and g2 < -1:
+                words.append("light-tailed")
+            seen = str(out.at[c, "reading"] or "").split("; ")
+            words += [w for w in seen if w.startswith(("piled at its", "bimodal", "multimodal"))]
+            distinct = int(a.at[c, "distinct"])
+            if distinct <= 10:
+                words.append(f"few distinct values ({distinct})")
+            row["reading"] = "; ".join(words)
+        for k in cols:
+            cols[k].append(row[k])
+    for k, v in cols.items():
+        out[k] = pd.Series(v, index=out.index, dtype=out[k].dtype if k in ("n", "missing", "infinite") else None)
+    return out
+
+
+def _names(result: Any) -> list[str]:
+    return [str(c) for c in result.table.index]
+
+
+def apply(run: Any, result: Any) -> dict[str, str]:
+    names = _names(result)
+    if not names:
+        return {}
+    agg = scaled_moments(run.t, run.stats().loc[names], run=run.execute)
+    quartiles = run.quantiles(names)
+    result.table = exact_shape(result.table, agg, quartiles, dagostino_k2, sample_max=SAMPLE_MAX)
+    labels = {c: run.exact_label() for c in _EXACT}
+    labels["quartile_skew"] = run.exact_label("quantile")
+    labels["mean_minus_median"] = run.exact_label("quantile")
+    if not run.sample_is_all:
+        labels["normality_test"] = labels["normality_stat"] = labels["normality_p"] = (
+            f"all rows (D'Agostino-Pearson K2 from n, G1, G2) when n > {SAMPLE_MAX}; else "
+            f"Shapiro-Wilk on the {run.sample_label()}"
+        )
+        labels["reading"] = ("skew, tails and distinct values from all rows; piling at a limit and "
+                             f"density peaks from the {run.sample_label()}")
+    else:
+        for k in ("normality_test", "normality_stat", "normality_p", "reading"):
+            labels[k] = run.sample_label()
+    return labels
+
+
+def code(run: Any, result: Any) -> str:
+    names = _names(result)
+    if not names:
+        return ""
+    return "\n".join([
+        "# The numbers the engine computes over all rows replace the sample's:",
+        "import ibis",
+        function_source(aggregates.column_stats),
+        function_source(aggregates.column_quantiles),
+        function_source(scaled_moments),
+        function_source(exact_shape),
+        f"names = {names!r}",
+        f"agg = scaled_moments(t, column_stats(t, names, exact={run.exact!r}))",
+        f"quartiles = column_quantiles(t, names, (0.25, 0.5, 0.75), exact={run.exact!r})",
+        f"shape = exact_shape(shape, agg, quartiles, dagostino_k2, sample_max={SAMPLE_MAX})",
+    ])
