@@ -117,7 +117,7 @@ def _role_rules(values, dtype, count, unique, levels):
     words = {str(w).strip().lower() for w in values.unique()} if unique <= 8 else set()
     if words in bool_words:
         return "boolean", "two yes/no-like values: " + " / ".join(sorted(words))
-    pick = np.unique(np.linspace(0, count - 1, min(count, 200)).astype(np.int64))
+    pick = np.unique(np.linspace(0, len(values) - 1, min(len(values), 200)).astype(np.int64))  # a spread of the values given
     sample = values.iloc[pick].astype(str).str.strip()
     date_like = sample.str.fullmatch(
         r"\d{4}-\d{1,2}-\d{1,2}([ T]\d{1,2}:\d{2}(:\d{2}(\.\d+)?)?)?(Z|[+-]\d{2}:?\d{2})?"
