@@ -291,3 +291,27 @@ def test_emitted_code_big(big):
     assert_same_table(ns["segments_tests"], got.tests)
     assert_same_table(ns["segments_pairs"], got.pairs)
     assert "t = con.read_parquet(" in got.code()
+
+
+def test_many_levels_top_values_only(tmp_path):
+    """A by column with many distinct values: the engine returns only the most frequent values
+    (ties by value) plus the number of levels; the segments equal the pandas path's
+    (reference: ``df.eda.segments`` — 20 most frequent kept, the rest pooled, missing last)."""
+    from nbeda.engine.overlays.segments import engine_plan
+
+    rng = np.random.default_rng(21)
+    n = 3000
+    trays = np.array([f"tray-{i:04d}" for i in rng.integers(0, 900, n)], dtype=object)
+    trays[rng.choice(n, 40, replace=False)] = None
+    frame = pd.DataFrame({"tray": trays, "yield_kg": rng.normal(30, 5, n)})
+    frame.to_parquet(tmp_path / "trays.parquet")
+    want = frame.eda.segments(by="tray", metric="yield_kg", against=False)
+    report = nbeda.source(tmp_path / "trays.parquet")
+    got = report.segments(by="tray", metric="yield_kg", against=False)
+    assert_same_table(got.table, want.table)
+    assert_same_table(got.balance, want.balance)
+    assert any(str(v).startswith("other (") for v in got.table.index)
+    small_limit = engine_plan(report.engine.t, "tray", "levels", 20, 5, limit=50)  # only 50 values back
+    full = engine_plan(report.engine.t, "tray", "levels", 20, 5)
+    assert small_limit["order"] == full["order"] == list(want.table.index)
+    assert small_limit["labels"] == full["labels"]

@@ -55,20 +55,35 @@ _BALANCE = ["n", "share", "expected_n", "pearson_residual"]
 # --------------------------------------------------------------------------- #
 # Engine side (ibis): self-contained, embedded in the emitted code.            #
 # --------------------------------------------------------------------------- #
-def segment_values(t, name, run=None):
+def segment_values(t, name, limit=10_000, run=None):
     """Rows per distinct value of column ``name`` of ibis table ``t`` (missing values included).
 
+    At most ``limit`` values come back: beyond that, the ``limit`` most frequent (ties by
+    value), and ``attrs`` holds the number of distinct non-missing values ("levels") and
+    of missing rows ("missing") from one more query — enough for the 20 kept levels and the
+    size of the pooled rest, without pulling an identifier's millions of values.
     Integer columns with missing values come back as nullable ``Int64`` and booleans as
     ``boolean``, as the row sample holds them (so their text labels match).
     """
     run = run or (lambda expr, what: expr.to_pandas())
     col = t[name]
-    got = run(t.group_by(value=col).aggregate(count=ibis._.count()), f"value counts of {name}")
+    counts = t.group_by(value=col).aggregate(count=ibis._.count())
+    got = run(counts.order_by([ibis.desc("count"), ibis.asc("value")]).limit(limit + 1), f"value counts of {name}")
     dtype = t.schema()[name]
     if dtype.is_integer() and got["value"].dtype.kind == "f":
         got["value"] = got["value"].astype("Int64")
     elif dtype.is_boolean() and got["value"].dtype == object:
         got["value"] = got["value"].astype("boolean")
+    if len(got) > limit:
+        missing = col.isnull()
+        present = col
+        if dtype.is_floating():
+            missing = missing | col.isnan()
+            present = col.isnan().ifelse(ibis.null(col.type()), col)
+        info = run(t.aggregate(levels=present.nunique(), missing=missing.sum()),
+                   f"distinct values of {name}").iloc[0]
+        got = got[got["value"].notna()].iloc[:limit].reset_index(drop=True)
+        got.attrs = {"levels": int(info["levels"]), "missing": int(info["missing"] or 0)}
     return got
 
 
@@ -105,23 +120,25 @@ def segment_plan(values, mode, max_levels=20, n_bins=5, edges=None):
         except TypeError:  # values that cannot be compared: keep the frequency order
             pass
     other = None
-    if len(levels) > max_levels:
+    n_levels = values.attrs.get("levels", len(levels))  # all levels, when only the top ones came back
+    if n_levels > max_levels:
         keep = set(by_count.index[:max_levels])
-        other = f"other ({len(levels) - max_levels} levels)"
+        other = f"other ({n_levels - max_levels} levels)"
         levels = [v for v in levels if v in keep]
     raw = {}
     for label, value in zip(text, present["value"].tolist()):
         raw.setdefault(label, []).append(value)
-    order = levels + ([other] if other else []) + (["(missing)"] if missing.any() else [])
+    has_missing = values.attrs["missing"] > 0 if "missing" in values.attrs else bool(missing.any())
+    order = levels + ([other] if other else []) + (["(missing)"] if has_missing else [])
     return {"mode": mode, "order": order, "named": levels, "labels": {v: raw[v] for v in levels},
             "other": other, "edges": None, "names": None}
 
 
-def engine_plan(t, name, mode, max_levels=20, n_bins=5, exact=True, run=None):
+def engine_plan(t, name, mode, max_levels=20, n_bins=5, exact=True, run=None, limit=10_000):
     """``segment_plan`` of column ``name`` from one engine query (value counts, or quantile edges)."""
     run = run or (lambda expr, what: expr.to_pandas())
     if mode != "bins":
-        return segment_plan(segment_values(t, name, run), mode, max_levels, n_bins)
+        return segment_plan(segment_values(t, name, limit, run), mode, max_levels, n_bins)
     x = t[name].cast("float64")
     if t.schema()[name].is_floating():
         x = (x.isnan() | x.isinf()).ifelse(ibis.null("float64"), x)
