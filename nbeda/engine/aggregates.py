@@ -11,8 +11,11 @@ Conventions (the same as the in-memory path):
   missing but are set aside from every statistic (``n_inf`` counts them);
 * moments are two-pass: the mean first, then sums of powers of deviations from
   it (no one-pass "sum of squares" formula, which loses digits);
-* quantiles interpolate linearly between order statistics (pandas' default),
-  computed one column at a time (all columns in one query can exhaust memory);
+* exact quantiles interpolate linearly between order statistics (pandas'
+  default), computed one column at a time (all columns in one query can exhaust
+  memory); approximate ones are small sketches, all columns in one query;
+* float literals are typed float64 and ±inf found by comparison (on Spark an
+  untyped float literal is DECIMAL and ibis' ``isinf()`` compiles to FALSE);
 * distinct counts are exact (``COUNT(DISTINCT)``) or, when ``exact=False``,
   approximate (HyperLogLog, a few per cent error).
 """
@@ -27,7 +30,12 @@ __all__ = ["column_kinds", "column_stats", "column_quantiles", "value_counts", "
 
 
 def column_kinds(t):
-    """Kind of every column of ibis table ``t``: 'number', 'boolean', 'datetime' or 'other'."""
+    """Kind of every column of ibis table ``t``.
+
+    'number', 'boolean', 'datetime', 'other' (strings and other scalars), or
+    'unsupported' for values an engine cannot aggregate portably (arrays, maps,
+    structs, binary, JSON, geometries, unknown types): those are only counted.
+    """
     kinds = {}
     for name, dtype in t.schema().items():
         if dtype.is_boolean():
@@ -36,6 +44,9 @@ def column_kinds(t):
             kinds[name] = "number"
         elif dtype.is_timestamp() or dtype.is_date():
             kinds[name] = "datetime"
+        elif (dtype.is_nested() or dtype.is_binary() or dtype.is_json() or dtype.is_geospatial()
+              or dtype.is_unknown()):
+            kinds[name] = "unsupported"
         else:
             kinds[name] = "other"
     return kinds
@@ -50,25 +61,36 @@ def column_stats(t, names, exact=True, run=None):
     s1 = Σ(x − mean₀), m2, m3, m4 = Σ(x − mean₀)^k over finite values (mean₀ the
     first-pass mean; the refined mean is mean₀ + s1/count). ``run`` executes an
     expression (default: ``expr.to_pandas()``).
+
+    Columns of kind 'unsupported' (arrays, maps, structs, binary, ...) are only
+    counted (rows, count, missing); their ``note`` says so. Approximate distinct
+    counts use HyperLogLog (Spark's relative standard deviation is 5%; a finer
+    one makes its aggregation buffers, and the query, many times slower).
     """
     run = run or (lambda expr, what: expr.to_pandas())
     kinds = column_kinds(t)
+    schema = t.schema()
     numbers = [c for c in names if kinds[c] == "number"]
+    # explicit comparisons: ibis' isinf() compiles to FALSE on Spark
+    inf = ibis.literal(float("inf"), type="float64")
 
     def finite(c):
         x = t[c].cast("float64")
-        if t.schema()[c].is_floating():
-            x = (x.isnan() | x.isinf()).ifelse(ibis.null("float64"), x)
+        if schema[c].is_floating():
+            x = (x.isnan() | (x == inf) | (x == -inf)).ifelse(ibis.null("float64"), x)
         return x
 
     aggs = {"rows": t.count()}
     for i, c in enumerate(names):
         col = t[c]
         present = col.notnull()
-        if kinds[c] == "number" and t.schema()[c].is_floating():
+        if kinds[c] == "unsupported":
+            aggs[f"present_{i}"] = present.sum()
+            continue
+        if kinds[c] == "number" and schema[c].is_floating():
             present = present & ~col.isnan()
-            aggs[f"n_pinf_{i}"] = (present & col.isinf() & (col > 0)).sum()
-            aggs[f"n_ninf_{i}"] = (present & col.isinf() & (col < 0)).sum()
+            aggs[f"n_pinf_{i}"] = (present & (col == inf)).sum()
+            aggs[f"n_ninf_{i}"] = (present & (col == -inf)).sum()
         aggs[f"present_{i}"] = present.sum()
         kept = finite(c) if kinds[c] == "number" else present.ifelse(col, ibis.null(col.type()))
         aggs[f"distinct_{i}"] = kept.nunique() if exact else kept.approx_nunique()
@@ -89,8 +111,13 @@ def column_stats(t, names, exact=True, run=None):
         n_ninf = int(first.get(f"n_ninf_{i}", 0) or 0)
         n_inf = n_pinf + n_ninf
         rec = {"kind": kinds[c], "rows": rows, "missing": rows - present, "n_inf": n_inf,
-               "n_pinf": n_pinf, "n_ninf": n_ninf,
-               "count": present - n_inf, "distinct": int(first[f"distinct_{i}"] or 0)}
+               "n_pinf": n_pinf, "n_ninf": n_ninf, "count": present - n_inf, "note": ""}
+        if kinds[c] == "unsupported":
+            rec["distinct"] = float("nan")
+            rec["note"] = f"type {schema[c]} cannot be aggregated by the engine: counted only"
+            out[c] = rec
+            continue
+        rec["distinct"] = int(first[f"distinct_{i}"] or 0)
         if kinds[c] in ("number", "datetime"):
             rec["min"], rec["max"] = first[f"min_{i}"], first[f"max_{i}"]
         if kinds[c] == "number":
@@ -121,20 +148,49 @@ def column_stats(t, names, exact=True, run=None):
 
 
 def column_quantiles(t, names, probs=(0.25, 0.5, 0.75), exact=True, run=None):
-    """Quantiles (linear interpolation) of finite values, one query per column; one row per column."""
+    """Quantiles of finite values; one row per column, one column per probability.
+
+    Exact quantiles interpolate linearly between order statistics (pandas'
+    default) and take one query per column (all columns in one query can exhaust
+    memory). Approximate quantiles (``exact=False``: DuckDB's t-digest, Spark's
+    percentile_approx with rank error ≈ 1e-4) are one small sketch per column,
+    so all columns share one query.
+    """
     run = run or (lambda expr, what: expr.to_pandas())
-    rows = {}
-    for c in names:
+    schema = t.schema()
+    inf = ibis.literal(float("inf"), type="float64")
+
+    def finite(c):
         x = t[c].cast("float64")
-        if t.schema()[c].is_floating():
-            x = (x.isnan() | x.isinf()).ifelse(ibis.null("float64"), x)
+        if schema[c].is_floating():  # explicit comparisons: ibis' isinf() compiles to FALSE on Spark
+            x = (x.isnan() | (x == inf) | (x == -inf)).ifelse(ibis.null("float64"), x)
+        return x
+
+    def value(v):
+        return float(v) if v is not None and v == v else float("nan")
+
+    groups = [[c] for c in names] if exact else ([list(names)] if len(names) else [])
+    rows = {}
+    for group in groups:
         aggs = {}
-        for j, p in enumerate(probs):
-            aggs[f"q{j}"] = x.quantile(p) if exact else x.approx_quantile(p)
-        got = run(t.aggregate(**aggs), f"quantiles of {c}").iloc[0]
-        rows[c] = [float(got[f"q{j}"]) if got[f"q{j}"] is not None else float("nan") for j in range(len(probs))]
+        for i, c in enumerate(group):
+            x = finite(c)
+            if exact:
+                for j, p in enumerate(probs):
+                    aggs[f"q{i}_{j}"] = x.quantile(p)
+            else:  # one sketch answers every probability
+                aggs[f"q{i}"] = x.approx_quantile([float(p) for p in probs])
+        what = f"quantiles of {group[0]}" if exact else f"approximate quantiles of {len(group)} columns"
+        got = run(t.aggregate(**aggs), what).iloc[0]
+        for i, c in enumerate(group):
+            if exact:
+                rows[c] = [value(got[f"q{i}_{j}"]) for j in range(len(probs))]
+            else:
+                qs = got[f"q{i}"]
+                rows[c] = [value(v) for v in qs] if qs is not None and len(qs) else [float("nan")] * len(probs)
     table = pd.DataFrame.from_dict(rows, orient="index", columns=[float(p) for p in probs])
-    table.index = pd.Index(list(table.index), name="column", dtype=object)
+    table = table.reindex(list(names))
+    table.index = pd.Index(list(names), name="column", dtype=object)
     return table
 
 
@@ -152,13 +208,26 @@ def sample_rows(t, n_rows, n, seed=0, run=None):
 
     Each row is kept with probability n / n_rows (Bernoulli), so every part of the
     table is equally likely to be drawn; the size varies by about ±2·√n (a cap at
-    1.1·n only guards against a backend that ignores the fraction).
+    1.1·n only guards against a backend that ignores the fraction). On Spark the
+    sample is the DataFrame's own seeded ``sample(fraction, seed)`` (SQL's
+    ``TABLESAMPLE (n ROWS)`` takes the first rows, not a random sample).
 
     Integer columns with missing values come back as nullable ``Int64`` and
     booleans with missing values as ``boolean``, as pandas would hold them.
     """
     run = run or (lambda expr, what: expr.to_pandas())
-    expr = t if n_rows <= n else t.sample(n / n_rows, seed=seed).limit(int(1.1 * n) + 10)
+    cap = int(1.1 * n) + 10
+    if n_rows <= n:
+        expr = t
+    elif ibis.get_backend(t).name == "pyspark":
+        con = ibis.get_backend(t)
+        sampled = con.raw_sql(str(ibis.to_sql(t))).sample(withReplacement=False, fraction=n / n_rows,
+                                                          seed=int(seed))
+        view = f"nbeda_sample_{id(sampled):x}"
+        sampled.limit(cap).createOrReplaceTempView(view)
+        expr = con.table(view)
+    else:
+        expr = t.sample(n / n_rows, seed=seed).limit(cap)
     frame = run(expr, "the row sample")
     for name, dtype in t.schema().items():
         s = frame[name]
