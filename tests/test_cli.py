@@ -188,7 +188,7 @@ def test_unreadable_inputs_exit_2(tmp_path, capsys):
     cases = [
         (tmp_path / "missing.csv", "no such file"),
         (bad_json, "could not read"),
-        (tmp_path, "cannot tell the format"),
+        (tmp_path, "holds no Parquet files"),  # a folder is read by the engine
         (tmp_path / "sheet.xlsx", "cannot tell the format"),
     ]
     for path, message in cases:
