@@ -31,7 +31,6 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from nbeda.engine import aggregates
 from nbeda.stats import segments as S
 from nbeda.stats._codegen import col_expr, function_source
 
