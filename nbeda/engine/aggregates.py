@@ -81,6 +81,9 @@ def column_stats(t, names, exact=True, run=None):
         return x
 
     aggs = {"rows": t.count()}
+    # exact distinct counts get a query of their own: DuckDB runs a query mixing
+    # COUNT(DISTINCT ...) with plain aggregates about 2.5 times slower than the two apart
+    distinct = {} if exact else aggs
     for i, c in enumerate(names):
         col = t[c]
         present = col.notnull()
@@ -93,7 +96,7 @@ def column_stats(t, names, exact=True, run=None):
             aggs[f"n_ninf_{i}"] = (present & (col == -inf)).sum()
         aggs[f"present_{i}"] = present.sum()
         kept = finite(c) if kinds[c] == "number" else present.ifelse(col, ibis.null(col.type()))
-        aggs[f"distinct_{i}"] = kept.nunique() if exact else kept.approx_nunique()
+        distinct[f"distinct_{i}"] = kept.nunique() if exact else kept.approx_nunique()
         if kinds[c] == "number":
             x = finite(c)
             aggs[f"sum_{i}"] = x.sum()
@@ -102,7 +105,10 @@ def column_stats(t, names, exact=True, run=None):
         elif kinds[c] == "datetime":
             aggs[f"min_{i}"] = col.min()
             aggs[f"max_{i}"] = col.max()
-    first = run(t.aggregate(**aggs), "counts, distinct values, min and max").iloc[0]
+    first = run(t.aggregate(**aggs), "counts, min and max" if exact else "counts, distinct values, min and max")
+    first = first.iloc[0].to_dict()
+    if exact and distinct:
+        first.update(run(t.aggregate(**distinct), "distinct values").iloc[0].to_dict())
     rows = int(first["rows"])
     out = {}
     for i, c in enumerate(names):
@@ -175,19 +181,15 @@ def column_quantiles(t, names, probs=(0.25, 0.5, 0.75), exact=True, run=None):
         aggs = {}
         for i, c in enumerate(group):
             x = finite(c)
-            if exact:
-                for j, p in enumerate(probs):
-                    aggs[f"q{i}_{j}"] = x.quantile(p)
-            else:  # one sketch answers every probability
-                aggs[f"q{i}"] = x.approx_quantile([float(p) for p in probs])
+            # all probabilities in one aggregate: one sorted copy of the column (or one
+            # sketch) answers them all; one aggregate per probability would sort it again each time
+            ps = [float(p) for p in probs]
+            aggs[f"q{i}"] = x.quantile(ps) if exact else x.approx_quantile(ps)
         what = f"quantiles of {group[0]}" if exact else f"approximate quantiles of {len(group)} columns"
         got = run(t.aggregate(**aggs), what).iloc[0]
         for i, c in enumerate(group):
-            if exact:
-                rows[c] = [value(got[f"q{i}_{j}"]) for j in range(len(probs))]
-            else:
-                qs = got[f"q{i}"]
-                rows[c] = [value(v) for v in qs] if qs is not None and len(qs) else [float("nan")] * len(probs)
+            qs = got[f"q{i}"]
+            rows[c] = [value(v) for v in qs] if qs is not None and len(qs) else [float("nan")] * len(probs)
     table = pd.DataFrame.from_dict(rows, orient="index", columns=[float(p) for p in probs])
     table = table.reindex(list(names))
     table.index = pd.Index(list(names), name="column", dtype=object)
