@@ -27,6 +27,7 @@ __all__ = ["EngineRun", "EngineMemoryError", "EXACT", "ALL_ROWS"]
 
 EXACT = "exact (all rows, by the engine)"
 ALL_ROWS = "exact (all rows: the sample is the whole table)"
+EXACTNESS_CAPTION = "How each number was computed"
 
 
 class EngineMemoryError(EngineError):
@@ -173,6 +174,16 @@ class EngineRun:
         result.exactness = pd.DataFrame(
             {"how": how}, index=pd.Index([str(c) for c in table.columns], name="number", dtype=object)
         )
+        # Every display of the result (each tab's own body_html and panel use tables()) shows
+        # how its numbers were computed.
+        shown = result.tables
+
+        def tables_with_exactness() -> dict[str, pd.DataFrame]:
+            return {**shown(), EXACTNESS_CAPTION: result.exactness}
+
+        result.tables = tables_with_exactness
+        if key == "segments":  # its pickers recompute on the sample alone: show the engine's tables only
+            result.panel = lambda: None
         pandas_code = result.code
         result.pandas_code = pandas_code
         result.code = lambda frame_name="t": self.code(key, result, module, pandas_code, frame_name)

@@ -78,9 +78,6 @@ class SectionResult:
         parts = [notes_html(self.flags, "nb-flag")]
         for caption, t in self.tables().items():
             parts.append(table_html(t, caption=caption))
-        exactness = getattr(self, "exactness", None)  # set on the engine path
-        if exactness is not None:
-            parts.append(table_html(exactness, caption="How each number was computed"))
         if with_chart:
             parts.append(self.chart_html())
         parts.append(notes_html(self.notes))

@@ -26,6 +26,9 @@ from urllib.parse import urlsplit
 
 ROOT = Path(__file__).resolve().parents[2]
 TOUR = ROOT / "example_notebooks" / "greenhouse_tour.ipynb"
+ENGINE_NOTEBOOK = ROOT / "example_notebooks" / "greenhouse_engine.ipynb"
+#: rows of the Parquet file the engine notebook writes in the browser layer (10M in the bench)
+ENGINE_ROWS = 300_000
 ARTIFACTS = ROOT / "tests" / "artifacts"
 CHROMIUM = Path("/usr/bin/chromium")
 
@@ -189,6 +192,7 @@ def start_lab_server(base: Path, log: Path) -> Iterator[LabServer]:
     root = base / "root"
     root.mkdir(parents=True, exist_ok=True)
     shutil.copy(TOUR, root / TOUR.name)
+    shutil.copy(ENGINE_NOTEBOOK, root / ENGINE_NOTEBOOK.name)
     settings = base / "settings"
     _write_lab_settings(settings)
     _write_page_config(base / "config")
@@ -207,6 +211,7 @@ def start_lab_server(base: Path, log: Path) -> Iterator[LabServer]:
         # The kernel spec runs `python`: make it this interpreter (where nbeda is installed).
         PATH=str(Path(sys.executable).parent) + os.pathsep + env.get("PATH", ""),
         PYTHONUNBUFFERED="1",
+        NBEDA_DEMO_ROWS=str(ENGINE_ROWS),  # the engine notebook's file size (kernels inherit it)
     )
     env.pop("JUPYTER_PATH", None)
     last_error = ""
