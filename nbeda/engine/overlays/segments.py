@@ -135,12 +135,13 @@ def segment_plan(values, mode, max_levels=20, n_bins=5, edges=None):
 
 def engine_plan(t, name, mode, max_levels=20, n_bins=5, exact=True, run=None, limit=10_000):
     """``segment_plan`` of column ``name`` from one engine query (value counts, or quantile edges)."""
+    inf = ibis.literal(float("inf"), type="float64")  # ±inf by comparison: isinf() is FALSE on Spark
     run = run or (lambda expr, what: expr.to_pandas())
     if mode != "bins":
         return segment_plan(segment_values(t, name, limit, run), mode, max_levels, n_bins)
     x = t[name].cast("float64")
     if t.schema()[name].is_floating():
-        x = (x.isnan() | x.isinf()).ifelse(ibis.null("float64"), x)
+        x = (x.isnan() | (x == inf) | (x == -inf)).ifelse(ibis.null("float64"), x)
     probs = np.linspace(0.0, 1.0, n_bins + 1)
     aggs = {f"q{j}": (x.quantile(float(p)) if exact else x.approx_quantile(float(p))) for j, p in enumerate(probs)}
     got = run(t.aggregate(**aggs), f"bin edges of {name}").iloc[0]
@@ -150,11 +151,12 @@ def engine_plan(t, name, mode, max_levels=20, n_bins=5, exact=True, run=None, li
 
 def segment_expr(t, name, plan):
     """ibis expression: the segment label of every row of ``t`` under ``plan``."""
+    inf = ibis.literal(float("inf"), type="float64")  # ±inf by comparison: isinf() is FALSE on Spark
     col = t[name]
     if plan["mode"] == "bins":
         x = col.cast("float64")
         if t.schema()[name].is_floating():
-            x = (x.isnan() | x.isinf()).ifelse(ibis.null("float64"), x)
+            x = (x.isnan() | (x == inf) | (x == -inf)).ifelse(ibis.null("float64"), x)
         names, edges = plan["names"], plan["edges"]
         if not names:
             return ibis.literal("(missing)", type="string")
@@ -182,14 +184,15 @@ def group_stats(t, by, plan, metric=None, exact=True, run=None):
     when min == max).  Second pass: s1 = Σ(y − mean0), m2 = Σ(y − mean0)² per segment,
     so mean = mean0 + s1/n and Σ(y − mean)² = m2 − s1²/n.  One row per segment.
     """
+    inf = ibis.literal(float("inf"), type="float64")  # ±inf by comparison: isinf() is FALSE on Spark
     run = run or (lambda expr, what: expr.to_pandas())
     cols = {"_seg": segment_expr(t, by, plan)}
     if metric is not None:
         raw = t[metric].cast("float64")
         cols["_y"] = raw
         if t.schema()[metric].is_floating():
-            cols["_y"] = (raw.isnan() | raw.isinf()).ifelse(ibis.null("float64"), raw)
-            cols["_inf"] = raw.notnull() & ~raw.isnan() & raw.isinf()
+            cols["_y"] = (raw.isnan() | (raw == inf) | (raw == -inf)).ifelse(ibis.null("float64"), raw)
+            cols["_inf"] = (raw == inf) | (raw == -inf)
     lt = t.mutate(**cols)
     aggs = {"rows": lt.count()}
     if metric is not None:
@@ -232,12 +235,13 @@ def group_stats(t, by, plan, metric=None, exact=True, run=None):
 def cross_stats(t, by, plan, against, plan2, metric=None, means=None, run=None):
     """Rows per (segment of ``by``, segment of ``against``) cell and, with a metric, its n and
     s1 = Σ(y − mean0 of the ``by`` segment) per cell (``means``: ``group_stats``'s mean0)."""
+    inf = ibis.literal(float("inf"), type="float64")  # ±inf by comparison: isinf() is FALSE on Spark
     run = run or (lambda expr, what: expr.to_pandas())
     cols = {"_a": segment_expr(t, by, plan), "_b": segment_expr(t, against, plan2)}
     if metric is not None and means is not None:
         y = t[metric].cast("float64")
         if t.schema()[metric].is_floating():
-            y = (y.isnan() | y.isinf()).ifelse(ibis.null("float64"), y)
+            y = (y.isnan() | (y == inf) | (y == -inf)).ifelse(ibis.null("float64"), y)
         cols["_y"] = y
     lt = t.mutate(**cols)
     aggs = {"count": lt.count()}
