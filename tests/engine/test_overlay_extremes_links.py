@@ -70,7 +70,9 @@ def _big_frame() -> pd.DataFrame:
         "c": rng.lognormal(size=n),
         "d": rng.standard_t(4, size=n) * 5,
         "e": rng.integers(1, 8, size=n).astype("float64"),
+        "f": rng.normal(size=n) * 2 + 5e6,  # f and g: complete columns (no missing, no inf)
     })
+    df["g"] = -0.3 * (df["f"] - 5e6) + rng.normal(size=n) * 3
     df.loc[rng.choice(n, 500, replace=False), "a"] = np.nan
     df.loc[rng.choice(n, 300, replace=False), "b"] = np.nan
     df.loc[rng.choice(n, 20, replace=False), "c"] = np.inf
@@ -230,7 +232,8 @@ def test_tukey_fences_from_all_row_quartiles(big, rule, k):
         s_lo, s_hi = (fin.min() - q1) / iqr, (fin.max() - q3) / iqr
         top = fin.max() if abs(s_hi) >= abs(s_lo) else fin.min()
         assert t.loc[col, "most_extreme"] == top
-        assert t.loc[col, "most_extreme_score"] == pytest.approx(s_hi if top == fin.max() else s_lo, rel=1e-12)
+        # rel 1e-9: column f sits near 5e6 with IQR ≈ 2.7, so one ulp of Q1 (≈ 1e-9) moves the score by ~4e-10
+        assert t.loc[col, "most_extreme_score"] == pytest.approx(s_hi if top == fin.max() else s_lo, rel=1e-9)
     _check_counts(df, t)
     assert res.exactness.loc["lower", "how"].startswith("tukey/tukey_far columns: exact (all rows, by the engine)")
 
@@ -242,7 +245,7 @@ def test_links_pearson_over_all_rows(big):
     res = r.links()
     t = res.table
     pear = t[t["measure"] == "pearson"]
-    assert len(pear) == 6  # a, b, c, d pairwise (e is ordinal: Spearman and Kendall)
+    assert len(pear) == 15  # a, b, c, d, f, g pairwise (e is ordinal: Spearman and Kendall)
     z = stats.norm.ppf(0.975)
     for _, row in pear.iterrows():
         x, y = df[row["x"]].to_numpy(), df[row["y"]].to_numpy()

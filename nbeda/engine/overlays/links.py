@@ -49,64 +49,103 @@ DIFFER = "Pearson and Spearman differ by 0.2 or more: a non-linear or outlier-dr
 def pair_pearson(t, pairs, agg, run=None):
     """Pairwise-complete Pearson r of each pair ``(x, y)`` of numeric columns of ibis table ``t``.
 
-    Two-pass sums over the rows where both values are finite: query 1 gives n, the sums and
-    min/max of each side (hence the pair's means); query 2 the sums of products of deviations
-    from those means.  ``agg`` is ``column_stats`` of the columns (min/max give a power-of-two
-    scale per column, exact in floating point, so squares cannot overflow).  Returns one row
-    per pair: x, y, n, r (NaN when n < 2 or a side is constant over the complete rows).
+    Two-pass sums over the rows where both values are finite.  Pass 1 (one query for all
+    pairs): n, the sums (hence the pair's means) and min/max of each side.  Pass 2 (one
+    query): Σdx·dy, Σdx², Σdy² and the residual sums Σdx, Σdy of deviations from those
+    means; cov = Σdx·dy − Σdx·Σdy/n.  ``agg`` is ``column_stats`` of the columns: min/max
+    give a power-of-two scale per column (exact in floating point, so squares cannot
+    overflow), and for a column with no missing or infinite value its all-row mean is the
+    pair mean (no pass-1 sums needed; its deviations are shared by all its pairs).
+    Returns one row per pair: x, y, n, r (NaN when n < 2 or a side is constant over the
+    pair's rows).
     """
     import math
 
     run = run or (lambda expr, what: expr.to_pandas())
     columns = sorted({c for pair in pairs for c in pair})
-    scaled = {}
-    for c in columns:
+    inf = ibis.literal(float("inf"), type="float64")  # explicit: isinf() is FALSE on Spark
+    zero = ibis.literal(0.0, type="float64")
+    cols, scale, complete = {}, {}, {}
+    for j, c in enumerate(columns):
         x = t[c].cast("float64")
         if t.schema()[c].is_floating():
-            inf = ibis.literal(float("inf"), type="float64")  # explicit: isinf() is FALSE on Spark
             x = (x.isnan() | (x == inf) | (x == -inf)).ifelse(ibis.null("float64"), x)
         lo, hi = agg.loc[c, "min"], agg.loc[c, "max"]
         big = max(abs(float(lo)), abs(float(hi))) if lo is not None and hi is not None else 0.0
         big = big if big == big and 0.0 < big < float("inf") else 1.0
-        scaled[c] = x * ibis.literal(math.ldexp(1.0, -math.frexp(big)[1]), type="float64")
-    first = {}
-    for i, (a, b) in enumerate(pairs):
-        xa, xb = scaled[a], scaled[b]
-        both = xa.notnull() & xb.notnull()
-        first[f"n_{i}"] = both.sum()
-        first[f"sa_{i}"] = xa.sum(where=both)
-        first[f"sb_{i}"] = xb.sum(where=both)
-        first[f"mina_{i}"] = xa.min(where=both)
-        first[f"maxa_{i}"] = xa.max(where=both)
-        first[f"minb_{i}"] = xb.min(where=both)
-        first[f"maxb_{i}"] = xb.max(where=both)
-    got = run(t.aggregate(**first), "pair counts and means").iloc[0] if pairs else {}
+        scale[c] = math.ldexp(1.0, -math.frexp(big)[1])
+        complete[c] = int(agg.loc[c, "count"]) == int(agg.loc[c, "rows"])
+        cols[f"c{j}"] = x * ibis.literal(scale[c], type="float64")
+    # one projection (finite values, scaled; NULL otherwise), then plain column references
+    p = t.select(**cols)
+    scaled = {c: p[f"c{j}"] for j, c in enumerate(columns)}
 
-    def num(key):
+    def both(u, v):
+        # u where v is present too: NULL propagates through u + 0·v (and u + 0 is exactly u),
+        # which engines run much faster than one filtered aggregate per pair
+        return u + v * zero
+
+    def value(got, key):
         v = got[key]
         return float(v) if v is not None and v == v else float("nan")
 
-    n = [int(num(f"n_{i}")) if num(f"n_{i}") == num(f"n_{i}") else 0 for i in range(len(pairs))]
-    second = {}
+    # pass 1: n, means and min/max of each pair (columns with no missing value: from agg)
+    first = {}
     for i, (a, b) in enumerate(pairs):
-        if n[i] < 2:
+        if complete[a] and complete[b]:
             continue
-        xa, xb = scaled[a], scaled[b]
-        both = xa.notnull() & xb.notnull()
-        da = xa - ibis.literal(num(f"sa_{i}") / n[i], type="float64")
-        db = xb - ibis.literal(num(f"sb_{i}") / n[i], type="float64")
-        second[f"da_{i}"] = da.sum(where=both)
-        second[f"db_{i}"] = db.sum(where=both)
-        second[f"dab_{i}"] = (da * db).sum(where=both)
-        second[f"daa_{i}"] = (da * da).sum(where=both)
-        second[f"dbb_{i}"] = (db * db).sum(where=both)
-    sums = run(t.aggregate(**second), "pair sums of products (second pass)").iloc[0] if second else {}
+        xa, xb = both(scaled[a], scaled[b]), both(scaled[b], scaled[a])
+        first[f"n_{i}"] = xa.count()
+        first[f"sa_{i}"], first[f"sb_{i}"] = xa.sum(), xb.sum()
+        first[f"mina_{i}"], first[f"maxa_{i}"] = xa.min(), xa.max()
+        first[f"minb_{i}"], first[f"maxb_{i}"] = xb.min(), xb.max()
+    got = run(p.aggregate(**first), "pair counts and means").iloc[0] if first else {}
+    n, mean_a, mean_b, const = [], [], [], []
+    for i, (a, b) in enumerate(pairs):
+        if f"n_{i}" in first:
+            k = int(value(got, f"n_{i}")) if value(got, f"n_{i}") == value(got, f"n_{i}") else 0
+            n.append(k)
+            mean_a.append(value(got, f"sa_{i}") / k if k else float("nan"))
+            mean_b.append(value(got, f"sb_{i}") / k if k else float("nan"))
+            const.append(value(got, f"mina_{i}") == value(got, f"maxa_{i}")
+                         or value(got, f"minb_{i}") == value(got, f"maxb_{i}"))
+        else:
+            n.append(int(agg.loc[a, "rows"]))
+            mean_a.append(float(agg.loc[a, "mean"]) * scale[a])
+            mean_b.append(float(agg.loc[b, "mean"]) * scale[b])
+            const.append(float(agg.loc[a, "min"]) == float(agg.loc[a, "max"])
+                         or float(agg.loc[b, "min"]) == float(agg.loc[b, "max"]))
+    # pass 2: sums of products of deviations from the pair means
+    second = {}
+    shared = {}  # deviations of complete columns from their all-row mean, shared by their pairs
+    for i, (a, b) in enumerate(pairs):
+        if n[i] < 2 or const[i]:
+            continue
+        if f"n_{i}" not in first:
+            for c, m in ((a, mean_a[i]), (b, mean_b[i])):
+                if c not in shared:
+                    shared[c] = scaled[c] - ibis.literal(m, type="float64")
+                    second[f"d_{columns.index(c)}"] = shared[c].sum()
+                    second[f"dd_{columns.index(c)}"] = (shared[c] * shared[c]).sum()
+            second[f"dab_{i}"] = (shared[a] * shared[b]).sum()
+            continue
+        da = both(scaled[a] - ibis.literal(mean_a[i], type="float64"), scaled[b])
+        db = both(scaled[b] - ibis.literal(mean_b[i], type="float64"), scaled[a])
+        second[f"da_{i}"], second[f"db_{i}"] = da.sum(), db.sum()
+        second[f"dab_{i}"] = (da * db).sum()
+        second[f"daa_{i}"], second[f"dbb_{i}"] = (da * da).sum(), (db * db).sum()
+    sums = run(p.aggregate(**second), "pair sums of products (second pass)").iloc[0] if second else {}
     r = []
-    for i in range(len(pairs)):
-        if f"dab_{i}" not in second or num(f"mina_{i}") == num(f"maxa_{i}") or num(f"minb_{i}") == num(f"maxb_{i}"):
+    for i, (a, b) in enumerate(pairs):
+        if f"dab_{i}" not in second:
             r.append(float("nan"))
             continue
-        s = {k: float(sums[f"{k}_{i}"]) for k in ("da", "db", "dab", "daa", "dbb")}
+        if f"da_{i}" in second:
+            s = {k: value(sums, f"{k}_{i}") for k in ("da", "db", "dab", "daa", "dbb")}
+        else:
+            ja, jb = columns.index(a), columns.index(b)
+            s = {"da": value(sums, f"d_{ja}"), "db": value(sums, f"d_{jb}"), "dab": value(sums, f"dab_{i}"),
+                 "daa": value(sums, f"dd_{ja}"), "dbb": value(sums, f"dd_{jb}")}
         cov = s["dab"] - s["da"] * s["db"] / n[i]
         va = s["daa"] - s["da"] ** 2 / n[i]
         vb = s["dbb"] - s["db"] ** 2 / n[i]
