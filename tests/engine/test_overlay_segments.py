@@ -320,3 +320,19 @@ def test_many_levels_top_values_only(tmp_path):
     full = engine_plan(report.engine.t, "tray", "levels", 20, 5)
     assert small_limit["order"] == full["order"] == list(want.table.index)
     assert small_limit["labels"] == full["labels"]
+
+
+# ------------------------------------------------------- Spark (the same ibis expressions)
+def test_spark_equals_the_pandas_path(small, spark):
+    """Reference: the pandas path. On Spark (exact=True) every table equals it, ±inf in the metric
+    set aside (found by comparison); on Spark's default (approximate) the median says so."""
+    frame, path = small
+    sdf = spark.read.parquet(str(path))
+    kw = {"by": "soil_grade", "metric": "yield_kg", "against": "site"}
+    got = nbeda.source(sdf, exact=True).segments(**kw)
+    _same_tables(got, frame.eda.segments(**kw))
+    assert any("3 infinite values of yield_kg" in n for n in got.notes)
+    approx = nbeda.source(sdf).segments(by="site", metric="yield_kg", against=False)
+    assert approx.exactness["how"]["median"].startswith("approximate")
+    assert_same_table(approx.table[["n", "mean", "std", "sum"]],
+                      frame.eda.segments(by="site", metric="yield_kg", against=False).table[["n", "mean", "std", "sum"]])
