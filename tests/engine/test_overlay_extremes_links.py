@@ -49,6 +49,9 @@ def _small_frame() -> pd.DataFrame:
     df.loc[9, "h"] = -np.inf
     df.loc[11:20, "d"] = np.nan
     df.loc[40, "a"] = 9.0  # a clear extreme
+    # "u" is constant (2.5) on the rows where "v" is present: no Pearson r for the pair (u, v)
+    df["u"] = np.where(np.arange(n) % 3 == 0, 2.5, rng.normal(size=n))
+    df["v"] = np.where(np.arange(n) % 3 == 0, rng.normal(size=n), np.nan)
     return df
 
 
@@ -110,7 +113,9 @@ def test_links_equal_pandas_path_on_small_table(small):
     got = nbeda.source(path).links()
     want = df.eda.links().table
     assert_same_table(got.table, want)
-    assert (want["measure"] == "pearson").sum() == 15  # the six numeric columns pairwise
+    assert (want["measure"] == "pearson").sum() == 28  # the eight numeric columns pairwise
+    uv = got.table[(got.table["x"] == "u") & (got.table["y"] == "v") & (got.table["measure"] == "pearson")]
+    assert uv["estimate"].isna().all() and uv["note"].str.contains("constant").all()
     assert got.exactness.loc["estimate", "how"].startswith("Pearson rows: exact (all rows, by the engine)")
 
 

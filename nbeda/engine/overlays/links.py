@@ -8,7 +8,9 @@ engine computes over **all rows** (pairwise complete: both values finite):
   about those means (a second query for all pairs; cov = Σdx·dy − Σdx·Σdy/n).  Each
   column is multiplied by a power of two near 1/max|x| first (exact in floating point,
   r unchanged) so squares never overflow.  A column constant over the pair's complete
-  rows (min = max) gives no r, as on the pandas path.
+  rows (its variance there lost to rounding) gives no r, as on the pandas path.  Pairs
+  are summed without filtered aggregates (u + 0·v is NULL where v is): on DuckDB that
+  ran about ten times faster than one ``FILTER`` clause per aggregate.
 
   Why not the engine's own ``corr``: measured against exact rational arithmetic on the
   same float64 data, DuckDB's ``corr(x, y)`` (one-pass updates) was off by 1.1e-7
@@ -50,9 +52,11 @@ def pair_pearson(t, pairs, agg, run=None):
     """Pairwise-complete Pearson r of each pair ``(x, y)`` of numeric columns of ibis table ``t``.
 
     Two-pass sums over the rows where both values are finite.  Pass 1 (one query for all
-    pairs): n, the sums (hence the pair's means) and min/max of each side.  Pass 2 (one
-    query): Σdx·dy, Σdx², Σdy² and the residual sums Σdx, Σdy of deviations from those
-    means; cov = Σdx·dy − Σdx·Σdy/n.  ``agg`` is ``column_stats`` of the columns: min/max
+    pairs): n and the sums of each side (hence the pair's means).  Pass 2 (one query):
+    Σdx·dy, Σdx², Σdy² and the residual sums Σdx, Σdy of deviations from those means;
+    cov = Σdx·dy − Σdx·Σdy/n, var = Σdx² − (Σdx)²/n.  A side whose variance is lost to
+    rounding (var ≤ 1e-12·Σdx²: every deviation is the same rounding error of the mean)
+    is constant over the pair's rows.  ``agg`` is ``column_stats`` of the columns: min/max
     give a power-of-two scale per column (exact in floating point, so squares cannot
     overflow), and for a column with no missing or infinite value its all-row mean is the
     pair mean (no pass-1 sums needed; its deviations are shared by all its pairs).
@@ -89,7 +93,7 @@ def pair_pearson(t, pairs, agg, run=None):
         v = got[key]
         return float(v) if v is not None and v == v else float("nan")
 
-    # pass 1: n, means and min/max of each pair (columns with no missing value: from agg)
+    # pass 1: n and means of each pair (columns with no missing value: from agg)
     first = {}
     for i, (a, b) in enumerate(pairs):
         if complete[a] and complete[b]:
@@ -97,8 +101,6 @@ def pair_pearson(t, pairs, agg, run=None):
         xa, xb = both(scaled[a], scaled[b]), both(scaled[b], scaled[a])
         first[f"n_{i}"] = xa.count()
         first[f"sa_{i}"], first[f"sb_{i}"] = xa.sum(), xb.sum()
-        first[f"mina_{i}"], first[f"maxa_{i}"] = xa.min(), xa.max()
-        first[f"minb_{i}"], first[f"maxb_{i}"] = xb.min(), xb.max()
     got = run(p.aggregate(**first), "pair counts and means").iloc[0] if first else {}
     n, mean_a, mean_b, const = [], [], [], []
     for i, (a, b) in enumerate(pairs):
@@ -107,8 +109,7 @@ def pair_pearson(t, pairs, agg, run=None):
             n.append(k)
             mean_a.append(value(got, f"sa_{i}") / k if k else float("nan"))
             mean_b.append(value(got, f"sb_{i}") / k if k else float("nan"))
-            const.append(value(got, f"mina_{i}") == value(got, f"maxa_{i}")
-                         or value(got, f"minb_{i}") == value(got, f"maxb_{i}"))
+            const.append(False)  # decided from the second pass
         else:
             n.append(int(agg.loc[a, "rows"]))
             mean_a.append(float(agg.loc[a, "mean"]) * scale[a])
@@ -149,7 +150,10 @@ def pair_pearson(t, pairs, agg, run=None):
         cov = s["dab"] - s["da"] * s["db"] / n[i]
         va = s["daa"] - s["da"] ** 2 / n[i]
         vb = s["dbb"] - s["db"] ** 2 / n[i]
-        r.append(min(max(cov / (math.sqrt(va) * math.sqrt(vb)), -1.0), 1.0) if va > 0 and vb > 0 else float("nan"))
+        if va > 1e-12 * s["daa"] and vb > 1e-12 * s["dbb"]:
+            r.append(min(max(cov / (math.sqrt(va) * math.sqrt(vb)), -1.0), 1.0))
+        else:
+            r.append(float("nan"))
     return pd.DataFrame({"x": [a for a, _ in pairs], "y": [b for _, b in pairs], "n": n, "r": r})
 
 
