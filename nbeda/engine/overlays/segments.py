@@ -552,15 +552,24 @@ def apply(run: Any, result: Any) -> dict[str, str]:
     binned = "bins" in (old.get("mode"), old.get("against_mode"))
     how = "the whole table (the sample is every row)" if run.sample_is_all else \
         f"the seeded sample ({len(run.sample()):,} of {run.n_rows:,} rows)"
-    notes.append(
-        "Engine path: the segments, their counts, means, standard deviations, sums, intervals and medians, "
-        "the balance, the ANOVA table, Welch's ANOVA, η²/ω², the balance χ² and the cross-tab are computed "
-        f"over all {run.n_rows:,} rows by the engine"
-        + ("" if run.exact else " (medians approximate" + (", and the quantile bins are cut at approximate "
-                                  "quantiles)" if binned else ")"))
-        + f"; Kruskal–Wallis and Tukey's HSD need every value, so they use {how}, with its rows "
-        "labelled by the same segments."
-    )
+    if metric is not None:
+        what = ("the segments, their counts, means, standard deviations, sums, intervals and medians, the "
+                "balance, the ANOVA table, Welch's ANOVA, η²/ω², the balance χ²"
+                + (", the cross-tab and the pivot" if result.against_pos is not None else ""))
+    else:
+        what = "the segments, their counts and shares, the balance χ²" + (
+            " and the cross-tab" if result.against_pos is not None else "")
+    approx = ""
+    if not run.exact:
+        approx = " (medians approximate" if metric is not None else ""
+        if binned:
+            approx += (", and " if approx else " (") + "quantile bins cut at approximate quantiles"
+        approx += ")" if approx else ""
+    text = f"Engine path: {what} are computed over all {run.n_rows:,} rows by the engine{approx}."
+    if metric is not None:
+        text += (f" Kruskal–Wallis and Tukey's HSD need every value, so they use {how}, with its rows "
+                 "labelled by the same segments.")
+    notes.append(text)
     result.notes = choice_notes + notes
     if result.metric_pos is None:
         labels = {c: run.exact_label() for c in _BALANCE}
