@@ -131,19 +131,24 @@ def column_stats(t, names, exact=True, run=None):
             rec["sum"] = float(total) if total is not None and total == total else 0.0
             rec["mean0"] = rec["sum"] / rec["count"] if rec["count"] else float("nan")
         out[c] = rec
-    second = {}
+    deviations = {}
     for i, c in enumerate(numbers):
         m = out[c]["mean0"]
         if m == m:
-            d = finite(c) - ibis.literal(float(m), type="float64")
+            deviations[f"d_{i}"] = finite(c) - ibis.literal(float(m), type="float64")
+    if deviations:
+        # each deviation computed once (a projection), then its powers summed: a short query
+        dev = t.select(**deviations)
+        second = {}
+        for key in deviations:
+            d, i = dev[key], key[2:]
             second[f"s1_{i}"] = d.sum()
             second[f"m2_{i}"] = (d * d).sum()
             second[f"m3_{i}"] = (d * d * d).sum()
             second[f"m4_{i}"] = (d * d * d * d).sum()
-    if second:
-        moments = run(t.aggregate(**second), "moments (second pass)").iloc[0]
+        moments = run(dev.aggregate(**second), "moments (second pass)").iloc[0]
         for i, c in enumerate(numbers):
-            if f"s1_{i}" in second:
+            if f"d_{i}" in deviations:
                 for k in ("s1", "m2", "m3", "m4"):
                     out[c][k] = float(moments[f"{k}_{i}"])
     table = pd.DataFrame.from_dict(out, orient="index")
