@@ -291,3 +291,21 @@ def test_emitted_code_reproduces_table(request, which, tab):
     assert_same_table(ns[tab], result.table)
     if tab == "gaps":
         assert_same_table(ns["gaps_patterns"], result.patterns)
+
+
+# --------------------------------------------------------------------------- Spark (approximate by default)
+def test_spark_small_frame_equals_pandas_path(spark, tmp_path):
+    """Reference: the pandas path on the same frame, through PySpark (approximate distinct counts by
+    default: where the sample holds every row, the sample's exact distinct counts are used)."""
+    df = small_frame().drop(columns=["huge"])
+    df.to_parquet(tmp_path / "greenhouse.parquet")
+    sdf = spark.read.parquet(str(tmp_path / "greenhouse.parquet"))
+    report = nbeda.source(sdf)
+    assert not report.engine.exact
+    for tab in ("roles", "shape", "gaps"):
+        result = report.section(tab)
+        assert_same_table(result.table, getattr(df.eda, tab)().table)
+        ns = run_code(result.code("sdf"), sdf, frame_name="sdf")
+        assert_same_table(ns[tab], result.table)
+    assert_same_table(report.gaps().patterns, df.eda.gaps().patterns)
+    assert report.roles().table.loc["tray", "role"] == "identifier"

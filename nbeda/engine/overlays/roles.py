@@ -40,6 +40,8 @@ def role_levels(t, sample, agg, max_levels=20, run=None):
     out = {}
     for c in agg.index:
         a = agg.loc[c]
+        if not a["distinct"] == a["distinct"]:  # a type the engine cannot count distinct values of
+            continue
         present = int(a["rows"]) - int(a["missing"])
         unique = int(a["distinct"]) + int(a["n_pinf"] > 0) + int(a["n_ninf"] > 0)
         held = sample[c].dropna()
@@ -59,12 +61,16 @@ def role_levels(t, sample, agg, max_levels=20, run=None):
     return out
 
 
-def exact_roles(roles, agg, sample, levels, overrides, rules):
+def exact_roles(roles, agg, sample, levels, overrides, rules, exact=True):
     """The Roles table with all-row counts, and roles re-derived from them by ``rules``.
 
     ``agg`` is ``column_stats``; ``levels`` is ``role_levels``; ``rules`` is the role
     rules function ``_role_rules(values, dtype, count, unique, levels)``; ``overrides``
     the roles the analyst set (they replace the inferred role, as in the Roles code).
+    ``roles`` is the Roles table of the sample.  With approximate distinct counts
+    (``exact=False``) the count is kept between the sample's distinct count and the
+    non-missing count, and the sample's own (exact) count is used when the sample
+    holds every row.
     """
     out = roles.copy()
     a = agg.reindex(out.index)
@@ -73,7 +79,13 @@ def exact_roles(roles, agg, sample, levels, overrides, rules):
     for c in out.index:
         rows, miss = int(a.at[c, "rows"]), int(a.at[c, "missing"])
         count = rows - miss  # non-missing, +/-inf included (as pandas counts them)
-        unique = int(a.at[c, "distinct"]) + int(a.at[c, "n_pinf"] > 0) + int(a.at[c, "n_ninf"] > 0)
+        distinct = a.at[c, "distinct"]
+        if distinct == distinct:
+            unique = int(distinct) + int(a.at[c, "n_pinf"] > 0) + int(a.at[c, "n_ninf"] > 0)
+        else:  # a type the engine cannot count distinct values of (lists, structs): the sample's count
+            unique = int(out.at[c, "unique"])
+        if not exact:  # HyperLogLog: bounded by what is known for sure
+            unique = int(out.at[c, "unique"]) if len(sample) == rows else max(min(unique, count), int(out.at[c, "unique"]))
         s = sample[c]
         values = s.dropna()
         extra = levels.get(c, [])
@@ -123,10 +135,12 @@ def apply(run: Any, result: Any) -> dict[str, str]:
     sample = run.sample()
     levels = role_levels(run.t, sample, agg, run=run.execute)
     overrides = dict(result.ctx.options.roles)
-    result.table = exact_roles(result.table, agg, sample, levels, overrides, _role_rules)
+    result.table = exact_roles(result.table, agg, sample, levels, overrides, _role_rules, exact=run.exact)
     labels = {"count": run.exact_label(), "missing": run.exact_label(), "unique": run.exact_label("distinct")}
     if run.sample_is_all:
-        rule_label = run.exact_label("distinct")
+        if not run.exact:  # the sample's own distinct counts are exact
+            labels["unique"] = run.sample_label()
+        rule_label = labels["unique"]
     else:
         how = "exact" if run.exact else "approximate"
         rule_label = (f"rules applied to the all-row counts ({how} distinct count) and the sample's values "
@@ -158,5 +172,5 @@ def code(run: Any, result: Any) -> str:
         f"names = {names!r}",
         f"agg = column_stats(t, names, exact={run.exact!r})",
         "levels = role_levels(t, sample, agg)",
-        "roles = exact_roles(roles, agg, sample, levels, overrides, _role_rules)",
+        f"roles = exact_roles(roles, agg, sample, levels, overrides, _role_rules, exact={run.exact!r})",
     ])

@@ -76,13 +76,15 @@ def exact_shape(shape, agg, quartiles, k2, sample_max=5000):
 
     ``agg`` is ``scaled_moments(column_stats(...))`` (two-pass sums about the first-pass
     mean, of values scaled by 2**-scale_exp); ``quartiles`` is ``column_quantiles`` at
-    0.25, 0.5, 0.75; ``k2`` is ``dagostino_k2(g1, g2, n)``.  G1 and G2 use the sums
+    0.25, 0.5, 0.75, or None to keep the table's quartile_skew and mean_minus_median
+    (an approximate engine, when the sample holds every row); ``k2`` is
+    ``dagostino_k2(g1, g2, n)``.  G1 and G2 use the sums
     recentred exactly on the refined mean (binomial expansion with d = s1/n).
     """
     out = shape.copy()
     nan = float("nan")
     a = agg.reindex(out.index)
-    q = quartiles.reindex(out.index)
+    q = quartiles.reindex(out.index) if quartiles is not None else None
     cols = {k: [] for k in ("n", "missing", "infinite", "skew", "skew_se", "kurtosis", "kurtosis_se",
                             "quartile_skew", "mean_minus_median", "dagostino_stat", "dagostino_p",
                             "normality_test", "normality_stat", "normality_p", "reading")}
@@ -110,11 +112,15 @@ def exact_shape(shape, agg, quartiles, k2, sample_max=5000):
             row["skew_se"] = float(np.sqrt(6.0 * n * (n - 1) / ((n - 2.0) * (n + 1.0) * (n + 3.0))))
             if n >= 4:
                 row["kurtosis_se"] = float(2.0 * row["skew_se"] * np.sqrt((n * n - 1.0) / ((n - 3.0) * (n + 5.0))))
-            q1, q2, q3 = float(q.at[c, 0.25]), float(q.at[c, 0.5]), float(q.at[c, 0.75])
-            if q3 > q1:
-                row["quartile_skew"] = float((q3 + q1 - 2.0 * q2) / (q3 - q1))
-            mean_y = float(a.at[c, "mean0"]) + d  # the mean of the (scaled) values
-            row["mean_minus_median"] = float(np.ldexp(mean_y - np.ldexp(q2, -e), e))
+            if q is None:
+                row["quartile_skew"] = float(out.at[c, "quartile_skew"])
+                row["mean_minus_median"] = float(out.at[c, "mean_minus_median"])
+            else:
+                q1, q2, q3 = float(q.at[c, 0.25]), float(q.at[c, 0.5]), float(q.at[c, 0.75])
+                if q3 > q1:
+                    row["quartile_skew"] = float((q3 + q1 - 2.0 * q2) / (q3 - q1))
+                mean_y = float(a.at[c, "mean0"]) + d  # the mean of the (scaled) values
+                row["mean_minus_median"] = float(np.ldexp(mean_y - np.ldexp(q2, -e), e))
             if n >= 20:
                 row["dagostino_stat"], row["dagostino_p"] = k2(g1, g2, n)
             if n > sample_max:  # the headline test: K2 on all values (Shapiro-Wilk above 5000 is on a sample)
@@ -156,16 +162,22 @@ def _names(result: Any) -> list[str]:
     return [str(c) for c in result.table.index]
 
 
+def _sample_quantiles(run: Any) -> bool:
+    """An approximate engine while the sample holds every row: the sample's quartiles are exact."""
+    return not run.exact and run.sample_is_all
+
+
 def apply(run: Any, result: Any) -> dict[str, str]:
     names = _names(result)
     if not names:
         return {}
     agg = scaled_moments(run.t, run.stats().loc[names], run=run.execute)
-    quartiles = run.quantiles(names)
+    keep = _sample_quantiles(run)
+    quartiles = None if keep else run.quantiles(names)
     result.table = exact_shape(result.table, agg, quartiles, dagostino_k2, sample_max=SAMPLE_MAX)
     labels = {c: run.exact_label() for c in _EXACT}
-    labels["quartile_skew"] = run.exact_label("quantile")
-    labels["mean_minus_median"] = run.exact_label("quantile")
+    labels["quartile_skew"] = run.sample_label() if keep else run.exact_label("quantile")
+    labels["mean_minus_median"] = run.sample_label() if keep else run.exact_label("quantile")
     if not run.sample_is_all:
         labels["normality_test"] = labels["normality_stat"] = labels["normality_p"] = (
             f"all rows (D'Agostino-Pearson K2 from n, G1, G2) when n > {SAMPLE_MAX}; else "
@@ -192,6 +204,8 @@ def code(run: Any, result: Any) -> str:
         function_source(exact_shape),
         f"names = {names!r}",
         f"agg = scaled_moments(t, column_stats(t, names, exact={run.exact!r}))",
-        f"quartiles = column_quantiles(t, names, (0.25, 0.5, 0.75), exact={run.exact!r})",
+        ("quartiles = None  # the engine's quantiles are approximate; the sample (every row) gives exact ones"
+         if _sample_quantiles(run) else
+         f"quartiles = column_quantiles(t, names, (0.25, 0.5, 0.75), exact={run.exact!r})"),
         f"shape = exact_shape(shape, agg, quartiles, dagostino_k2, sample_max={SAMPLE_MAX})",
     ])
