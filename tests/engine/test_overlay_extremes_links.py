@@ -296,3 +296,17 @@ def test_code_reproduces_table_small(small, tab):
     res = nbeda.source(path).section(tab)
     ns = run_code(res.code(), None, "t")
     assert_same_table(ns[tab], res.table)
+
+
+# ------------------------------------------------------------------------------------------
+# the same aggregates on Spark (the ``spark`` session fixture of tests/engine/conftest.py)
+# ------------------------------------------------------------------------------------------
+def test_spark_equals_pandas_path_on_small_table(spark):
+    """Reference: the pandas path on the same frame; Spark with exact quantiles (its infinity
+    tests must be explicit comparisons: ibis' isinf() compiles to FALSE there)."""
+    df = _small_frame()
+    r = nbeda.source(spark.createDataFrame(df), exact=True)
+    for tab in ("extremes", "links"):
+        got = r.section(tab)
+        assert_same_table(got.table, getattr(df.eda, tab)().table)
+    assert int(r.extremes().table.loc["c", "n_inf"]) == 1
