@@ -260,6 +260,11 @@ def test_big_frame_exact_columns_equal_full_pandas_path(big):
     shape = report.shape().table
     assert (shape["normality_test"] == "D'Agostino-Pearson K2").all()  # n > 5000 on every column
     assert shape.loc["yield_kg", "infinite"] == 2
+    # the reading's skew and tail words follow the all-row G1/G2 (no piling or second peak here)
+    assert list(shape["reading"]) == list(df.eda.shape().table.loc[shape.index, "reading"])
+    # level counts of the categorical columns: all rows, by one engine group-by each
+    assert_same_table(report.shape().levels, df.eda.shape().levels)
+    assert_same_table(report.shape().frequencies, df.eda.shape().frequencies)
 
 
 def test_big_frame_unique_in_sample_is_not_identifier(big):
@@ -291,6 +296,9 @@ def test_emitted_code_reproduces_table(request, which, tab):
     assert_same_table(ns[tab], result.table)
     if tab == "gaps":
         assert_same_table(ns["gaps_patterns"], result.patterns)
+    if tab == "shape" and len(result.levels):
+        assert_same_table(ns["shape_levels"], result.levels)
+        assert_same_table(ns["shape_frequencies"], result.frequencies)
 
 
 # --------------------------------------------------------------------------- Spark (approximate by default)

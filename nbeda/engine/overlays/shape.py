@@ -28,9 +28,9 @@ import pandas as pd
 
 from nbeda.engine import aggregates
 from nbeda.stats._codegen import function_source
-from nbeda.stats.shape import SAMPLE_MAX, dagostino_k2
+from nbeda.stats.shape import SAMPLE_MAX, dagostino_k2, frequency_table, level_row
 
-__all__ = ["scaled_moments", "exact_shape", "apply", "code"]
+__all__ = ["scaled_moments", "exact_shape", "level_counts_engine", "exact_levels", "apply", "code"]
 
 _EXACT = ["n", "missing", "infinite", "skew", "skew_se", "kurtosis", "kurtosis_se", "mean_minus_median",
           "dagostino_stat", "dagostino_p"]
@@ -89,6 +89,10 @@ def exact_shape(shape, agg, quartiles, k2, sample_max=5000):
                             "quartile_skew", "mean_minus_median", "dagostino_stat", "dagostino_p",
                             "normality_test", "normality_stat", "normality_p", "reading")}
     for c in out.index:
+        if a.at[c, "kind"] != "number":  # not a number to the engine (e.g. durations): the sample's row stands
+            for k in cols:
+                cols[k].append(out.at[c, k])
+            continue
         n = int(a.at[c, "count"])
         lo, hi = float(a.at[c, "min"]), float(a.at[c, "max"])
         row = dict.fromkeys(cols, nan)
@@ -158,6 +162,54 @@ def exact_shape(shape, agg, quartiles, k2, sample_max=5000):
     return out
 
 
+def level_counts_engine(t, names, run=None):
+    """Counts of every non-missing level of each column of ``names`` over all rows of ``t``.
+
+    One group-by per column; returns {column: Series of counts indexed by level}, most
+    common first, ties in the order of the levels.
+    """
+    run = run or (lambda expr, what: expr.to_pandas())
+    out = {}
+    for c in names:
+        col = t[c]
+        keep = col.notnull()
+        if t.schema()[c].is_floating():
+            keep = keep & ~col.isnan()
+        got = run(t.filter(keep).group_by(value=col).aggregate(count=ibis._.count()), f"level counts of {c}")
+        got = got.sort_values(["count", "value"], ascending=[False, True], kind="stable")
+        out[c] = pd.Series(got["count"].to_numpy(dtype="int64"), index=pd.Index(list(got["value"]), dtype=object))
+    return out
+
+
+def exact_levels(levels, frequencies, counts, level_row, frequency_table):
+    """The levels summary and frequency table rebuilt from all-row level counts.
+
+    ``counts`` is ``level_counts_engine``; ``level_row`` and ``frequency_table`` are the
+    Shape rules for one column (given its counts).  Columns without counts (ordered
+    levels, kept in their own order) keep their rows.
+    """
+    rows, parts = [], []
+    for c in levels.index:
+        if c in counts:
+            rows.append(level_row(None, (counts[c], False)))
+            f = frequency_table(counts[c], False)
+            f.index = pd.Index([c] * len(f), name="column", tupleize_cols=False, dtype=object)
+        else:
+            rows.append(levels.loc[c].to_dict())
+            f = frequencies[frequencies.index == c]
+        parts.append(f)
+    summary = pd.DataFrame(rows, index=levels.index, columns=levels.columns).astype(levels.dtypes.to_dict())
+    return summary, (pd.concat(parts) if parts else frequencies)
+
+
+def _level_names(run: Any, result: Any) -> list[str]:
+    """Unordered level columns whose counts the engine replaces (none when the sample is every row)."""
+    levels = getattr(result, "levels", None)
+    if run.sample_is_all or levels is None or not len(levels):
+        return []
+    return [str(c) for c in levels.index if not bool(levels.at[c, "ordered"])]
+
+
 def _names(result: Any) -> list[str]:
     return [str(c) for c in result.table.index]
 
@@ -168,6 +220,13 @@ def _sample_quantiles(run: Any) -> bool:
 
 
 def apply(run: Any, result: Any) -> dict[str, str]:
+    level_names = _level_names(run, result)
+    if level_names:
+        counts = level_counts_engine(run.t, level_names, run=run.execute)
+        result.levels, result.frequencies = exact_levels(result.levels, result.frequencies, counts,
+                                                         level_row, frequency_table)
+        result.notes.append("Levels tables: counts over all rows, by the engine (ties in the order of the "
+                            "levels); the dates table and the charts use the sample.")
     names = _names(result)
     if not names:
         return {}
@@ -193,9 +252,21 @@ def apply(run: Any, result: Any) -> dict[str, str]:
 
 def code(run: Any, result: Any) -> str:
     names = _names(result)
+    level_names = _level_names(run, result)
+    lines = []
+    if level_names:
+        lines = [
+            "# Level counts of the categorical columns over all rows replace the sample's:",
+            "import ibis",
+            function_source(level_counts_engine),
+            function_source(exact_levels),
+            f"level_counts = level_counts_engine(t, {level_names!r})",
+            "shape_levels, shape_frequencies = exact_levels(shape_levels, shape_frequencies, level_counts,",
+            "                                               level_row, frequency_table)",
+        ]
     if not names:
-        return ""
-    return "\n".join([
+        return "\n".join(lines)
+    return "\n".join(lines + [
         "# The numbers the engine computes over all rows replace the sample's:",
         "import ibis",
         function_source(aggregates.column_stats),
