@@ -282,7 +282,8 @@ def test_links_pearson_over_all_rows(big):
 # ------------------------------------------------------------------------------------------
 # (4) the emitted code reproduces the table
 # ------------------------------------------------------------------------------------------
-@pytest.mark.parametrize("tab,kw", [("extremes", {}), ("extremes", {"rule": "tukey"}), ("links", {})])
+@pytest.mark.parametrize("tab,kw", [("extremes", {}), ("extremes", {"rule": "tukey"}), ("extremes", {"rule": "esd"}),
+                                    ("links", {})])
 def test_code_reproduces_table_big(big, tab, kw):
     _, _, r = big
     res = r.section(tab, **kw)

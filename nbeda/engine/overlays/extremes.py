@@ -171,38 +171,34 @@ def exact_extremes(extremes, agg, fences, counts, quartiles, whole=False):
 # ----------------------------------------------------------------------------------------------
 # Library side
 # ----------------------------------------------------------------------------------------------
-def _engine_numbers(run: Any, names: list[str]) -> list[str]:
-    kinds = aggregates.column_kinds(run.t)
-    return [c for c in names if kinds.get(c) == "number"]
-
-
 def _tukey_names(table: pd.DataFrame, names: list[str]) -> list[str]:
     rules = dict(zip([str(c) for c in table.index], table["rule"]))
     return [c for c in names if rules.get(c) in _TUKEY_K]
 
 
+def _names(run: Any, table: pd.DataFrame) -> list[str]:
+    """The table's columns when every one is a number in the engine (else [], all sample-based)."""
+    names = [str(c) for c in table.index]
+    kinds = aggregates.column_kinds(run.t)
+    if len(set(names)) != len(names) or any(kinds.get(c) != "number" for c in names):
+        return []
+    return names
+
+
 def apply(run: Any, result: Any) -> dict[str, str]:
     table = result.table
-    all_names = [str(c) for c in table.index]
-    names = _engine_numbers(run, all_names)
-    if not names or len(set(all_names)) != len(all_names):
+    names = _names(run, table)
+    if not names:
         return {}
     whole = bool(run.sample_is_all)
-    sub = table.loc[names] if len(names) != len(all_names) else table
     agg = run.stats().loc[names]
-    tukey = _tukey_names(sub, names)
+    tukey = _tukey_names(table, names)
     quartiles = run.quantiles(tukey) if tukey else pd.DataFrame(columns=[0.25, 0.5, 0.75])
-    fences = tukey_fences(sub, agg, quartiles)
+    fences = tukey_fences(table, agg, quartiles)
     counts = count_beyond(run.t, names, fences["lower"].tolist(), fences["upper"].tolist(), run=run.execute)
-    new = exact_extremes(sub, agg, fences, counts, quartiles, whole=whole)
-    if len(names) != len(all_names):
-        out = table.copy()
-        for col in new.columns:
-            out.loc[names, col] = new[col].to_numpy()
-        new = out.astype(table.dtypes.to_dict())
-    result.table = new
+    result.table = exact_extremes(table, agg, fences, counts, quartiles, whole=whole)
     _restate(run, result, whole, tukey, names)
-    return _labels(run, new, names, tukey, whole)
+    return _labels(run, result.table, names, tukey, whole)
 
 
 def _labels(run: Any, table: pd.DataFrame, names: list[str], tukey: list[str], whole: bool) -> dict[str, str]:
@@ -276,13 +272,11 @@ def _restate(run: Any, result: Any, whole: bool, tukey: list[str], names: list[s
 
 
 def code(run: Any, result: Any) -> str:
-    all_names = [str(c) for c in result.table.index]
-    names = _engine_numbers(run, all_names)
-    if not names or len(set(all_names)) != len(all_names):
+    names = _names(run, result.table)
+    if not names:
         return ""
     tukey = _tukey_names(result.table, names)
-    partial = len(names) != len(all_names)
-    lines = [
+    return "\n".join([
         "# The numbers the engine computes over all rows replace the sample's: Tukey fences from the",
         "# all-row quartiles; n, n_low, n_high, n_inf and share counted over all rows against the fences.",
         "# An extreme value may be a real, important case: investigate before removing anything.",
@@ -295,23 +289,7 @@ def code(run: Any, result: Any) -> str:
         f"names = {names!r}",
         f"agg = column_stats(t, names, exact={run.exact!r})",
         f"quartiles = column_quantiles(t, {tukey!r}, (0.25, 0.5, 0.75), exact={run.exact!r})",
-    ]
-    if partial:
-        lines += [
-            "part = extremes.loc[names]",
-            "fences = tukey_fences(part, agg, quartiles)",
-            'counts = count_beyond(t, names, fences["lower"].tolist(), fences["upper"].tolist())',
-            f"part = exact_extremes(part, agg, fences, counts, quartiles, whole={bool(run.sample_is_all)!r})",
-            "dtypes = extremes.dtypes.to_dict()",
-            "extremes = extremes.copy()",
-            "for col in part.columns:",
-            "    extremes.loc[names, col] = part[col].to_numpy()",
-            "extremes = extremes.astype(dtypes)",
-        ]
-    else:
-        lines += [
-            "fences = tukey_fences(extremes, agg, quartiles)",
-            'counts = count_beyond(t, names, fences["lower"].tolist(), fences["upper"].tolist())',
-            f"extremes = exact_extremes(extremes, agg, fences, counts, quartiles, whole={bool(run.sample_is_all)!r})",
-        ]
-    return "\n".join(lines)
+        "fences = tukey_fences(extremes, agg, quartiles)",
+        'counts = count_beyond(t, names, fences["lower"].tolist(), fences["upper"].tolist())',
+        f"extremes = exact_extremes(extremes, agg, fences, counts, quartiles, whole={bool(run.sample_is_all)!r})",
+    ])
