@@ -159,7 +159,7 @@ def exact_extremes(extremes, agg, fences, counts, quartiles, whole=False):
                 return (base - anchor) / unit
 
             s_lo, s_hi = score(lo_val, anchor_lo), score(hi_val, anchor_hi)
-            top_hi = np.abs(s_hi) >= np.abs(s_lo)
+            top_hi = ~(np.abs(s_lo) > np.abs(s_hi))  # a minimum ≤ 0 has no log score: the maximum
             most = np.where(top_hi, hi_val, lo_val)
             most_score = np.where(top_hi, s_hi, s_lo)
             ok = np.isfinite(lower) & np.isfinite(upper) & np.isfinite(most_score) & (n >= 5)
