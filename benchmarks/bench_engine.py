@@ -59,7 +59,6 @@ def write_data(rows: int, folder: str) -> str:
     path = data_path(rows, folder)
     if os.path.exists(path):
         return path
-    import pandas as pd
     import pyarrow as pa
     import pyarrow.parquet as pq
 
@@ -89,7 +88,6 @@ def write_data(rows: int, folder: str) -> str:
     os.replace(tmp, path)
     print(f"wrote {path} ({rows:,} rows, {os.path.getsize(path) / 2**20:,.0f} MiB on disk) in "
           f"{time.perf_counter() - start:.0f} s", flush=True)
-    del pd
     return path
 
 
