@@ -194,12 +194,30 @@ def _open_path(path: str, memory_limit: str, exact: bool | None, sample_rows: in
 
 
 def _open_spark(df: Any, exact: bool | None, sample_rows: int) -> EngineSource:
+    """A Spark DataFrame as an ibis table (a temporary view in its own session).
+
+    Approximate quantiles and distinct counts by default: Spark's exact ones
+    gather every value (or every distinct value) of a column in one place.
+    Note that ibis sets the session's time zone to UTC when it connects.
+    """
     ibis = require_extra("ibis", "spark")
     require_extra("pyspark", "spark")
+    names = list(df.columns)
+    if not names:
+        raise EngineError("the Spark DataFrame has no columns")
+    dup = sorted({c for c in names if names.count(c) > 1})
+    if dup:
+        raise EngineError(
+            "the Spark DataFrame has duplicate column names (" + ", ".join(map(repr, dup[:6]))
+            + "): rename them first, e.g. with df.toDF(*new_names)"
+        )
     view = f"eda_source_{id(df):x}"
-    df.createOrReplaceTempView(view)
-    con = ibis.pyspark.connect(session=df.sparkSession)
-    t = con.table(view)
+    try:
+        df.createOrReplaceTempView(view)
+        con = ibis.pyspark.connect(session=df.sparkSession)
+        t = con.table(view)
+    except Exception as exc:
+        raise EngineError(f"cannot read the Spark DataFrame through ibis: {type(exc).__name__}: {exc}") from None
     return EngineSource(
         table=t, backend="pyspark", description="Spark DataFrame",
         exact=False if exact is None else bool(exact), memory_limit=None, sample_rows=sample_rows,

@@ -230,7 +230,7 @@ def sample_rows(t, n_rows, n, seed=0, run=None):
         con = ibis.get_backend(t)
         sampled = con.raw_sql(str(ibis.to_sql(t))).sample(withReplacement=False, fraction=n / n_rows,
                                                           seed=int(seed))
-        view = f"nbeda_sample_{id(sampled):x}"
+        view = f"eda_sample_{id(sampled):x}"
         sampled.limit(cap).createOrReplaceTempView(view)
         expr = con.table(view)
     else:
