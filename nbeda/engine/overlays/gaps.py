@@ -216,7 +216,7 @@ def code(run: Any, result: Any) -> str:
         return ""
     return "\n".join([
         "# The numbers the engine computes over all rows replace the sample's:",
-        "import ibis",
+        "import ibis\n",
         function_source(aggregates.column_kinds),
         function_source(aggregates.column_stats),
         function_source(missing_patterns_engine),

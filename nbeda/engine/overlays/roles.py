@@ -165,7 +165,7 @@ def code(run: Any, result: Any) -> str:
     return "\n".join([
         "# The counts the engine computes over all rows replace the sample's, and the roles are",
         "# re-derived from them by the same rules (so a column unique only in the sample is no identifier):",
-        "import ibis",
+        "import ibis\n",
         function_source(aggregates.column_stats),
         function_source(role_levels),
         function_source(exact_roles),

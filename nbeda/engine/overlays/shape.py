@@ -257,7 +257,7 @@ def code(run: Any, result: Any) -> str:
     if level_names:
         lines = [
             "# Level counts of the categorical columns over all rows replace the sample's:",
-            "import ibis",
+            "import ibis\n",
             function_source(level_counts_engine),
             function_source(exact_levels),
             f"level_counts = level_counts_engine(t, {level_names!r})",
@@ -268,7 +268,7 @@ def code(run: Any, result: Any) -> str:
         return "\n".join(lines)
     return "\n".join(lines + [
         "# The numbers the engine computes over all rows replace the sample's:",
-        "import ibis",
+        "import ibis\n",
         function_source(aggregates.column_stats),
         function_source(aggregates.column_quantiles),
         function_source(scaled_moments),
