@@ -116,37 +116,39 @@ def pair_pearson(t, pairs, agg, run=None):
             mean_b.append(float(agg.loc[b, "mean"]) * scale[b])
             const.append(float(agg.loc[a, "min"]) == float(agg.loc[a, "max"])
                          or float(agg.loc[b, "min"]) == float(agg.loc[b, "max"]))
-    # pass 2: sums of products of deviations from the pair means
-    second = {}
-    shared = {}  # deviations of complete columns from their all-row mean, shared by their pairs
+    # pass 2: sums of products of deviations from the pair means.  The deviations are one
+    # projection (each computed once per row), the sums plain column references.
+    devs = {}  # projected name -> expression
+    pair_cols = {}  # pair -> (name of its x deviations, name of its y deviations)
     for i, (a, b) in enumerate(pairs):
         if n[i] < 2 or const[i]:
             continue
         if f"n_{i}" not in first:
+            # complete columns: deviations from the all-row mean, shared by all their pairs
             for c, m in ((a, mean_a[i]), (b, mean_b[i])):
-                if c not in shared:
-                    shared[c] = scaled[c] - ibis.literal(m, type="float64")
-                    second[f"d_{columns.index(c)}"] = shared[c].sum()
-                    second[f"dd_{columns.index(c)}"] = (shared[c] * shared[c]).sum()
-            second[f"dab_{i}"] = (shared[a] * shared[b]).sum()
-            continue
-        da = both(scaled[a] - ibis.literal(mean_a[i], type="float64"), scaled[b])
-        db = both(scaled[b] - ibis.literal(mean_b[i], type="float64"), scaled[a])
-        second[f"da_{i}"], second[f"db_{i}"] = da.sum(), db.sum()
-        second[f"dab_{i}"] = (da * db).sum()
-        second[f"daa_{i}"], second[f"dbb_{i}"] = (da * da).sum(), (db * db).sum()
-    sums = run(p.aggregate(**second), "pair sums of products (second pass)").iloc[0] if second else {}
+                devs.setdefault(f"s{columns.index(c)}", scaled[c] - ibis.literal(m, type="float64"))
+            pair_cols[i] = (f"s{columns.index(a)}", f"s{columns.index(b)}")
+        else:
+            devs[f"a{i}"] = both(scaled[a] - ibis.literal(mean_a[i], type="float64"), scaled[b])
+            devs[f"b{i}"] = both(scaled[b] - ibis.literal(mean_b[i], type="float64"), scaled[a])
+            pair_cols[i] = (f"a{i}", f"b{i}")
+    second = {}
+    if devs:
+        q = p.select(**devs)
+        for name in devs:
+            second[f"d_{name}"] = q[name].sum()
+            second[f"dd_{name}"] = (q[name] * q[name]).sum()
+        for i, (u, v) in pair_cols.items():
+            second[f"dab_{i}"] = (q[u] * q[v]).sum()
+        sums = run(q.aggregate(**second), "pair sums of products (second pass)").iloc[0]
     r = []
-    for i, (a, b) in enumerate(pairs):
-        if f"dab_{i}" not in second:
+    for i in range(len(pairs)):
+        if i not in pair_cols:
             r.append(float("nan"))
             continue
-        if f"da_{i}" in second:
-            s = {k: value(sums, f"{k}_{i}") for k in ("da", "db", "dab", "daa", "dbb")}
-        else:
-            ja, jb = columns.index(a), columns.index(b)
-            s = {"da": value(sums, f"d_{ja}"), "db": value(sums, f"d_{jb}"), "dab": value(sums, f"dab_{i}"),
-                 "daa": value(sums, f"dd_{ja}"), "dbb": value(sums, f"dd_{jb}")}
+        u, v = pair_cols[i]
+        s = {"da": value(sums, f"d_{u}"), "db": value(sums, f"d_{v}"), "dab": value(sums, f"dab_{i}"),
+             "daa": value(sums, f"dd_{u}"), "dbb": value(sums, f"dd_{v}")}
         cov = s["dab"] - s["da"] * s["db"] / n[i]
         va = s["daa"] - s["da"] ** 2 / n[i]
         vb = s["dbb"] - s["db"] ** 2 / n[i]
