@@ -14,9 +14,10 @@ How each number is computed when the data live in an engine:
   For ``esd`` columns this counts the values beyond the sample's band (mean ± λ·SD of the
   data left after the test) — the test itself ran on the sample.  When the sample is the
   whole table the test's own counts are kept (they are then exact);
-* **most_extreme** is the engine's minimum or maximum, whichever scores further out on the
-  rule's scale: Tukey anchors at the all-row quartiles (unit IQR), ESD scores R₁ = (x − mean)/SD
-  with the all-row mean and SD, the other rules use the anchors of their sample fences;
+* **most_extreme** (when the table is larger than the sample) is the engine's minimum or
+  maximum, whichever scores further out on the rule's scale: Tukey anchors at the all-row
+  quartiles (unit IQR), ESD scores R₁ = (x − mean)/SD with the all-row mean and SD, the
+  other rules use the anchors of their sample fences;
 * the flagged-values, robust-distance and full-record tables stay on the sample (their row
   numbers are positions in the sample).
 """
