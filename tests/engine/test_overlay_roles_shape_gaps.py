@@ -304,3 +304,24 @@ def test_spark_small_frame_equals_pandas_path(spark, tmp_path):
         assert_same_table(ns[tab], result.table)
     assert_same_table(report.gaps().patterns, df.eda.gaps().patterns)
     assert report.roles().table.loc["tray", "role"] == "identifier"
+
+
+def test_skew_kurtosis_recentred_on_the_refined_mean(tmp_path):
+    """Values near 1e9 (a seeded gamma sample shifted by 1e9): the first-pass mean is off by ~1e-7,
+    so the sums about it must be recentred (binomial expansion) before forming G1 and G2.
+
+    Reference: scipy.stats.skew/kurtosis(bias=False) on the values minus 1e9 — that subtraction is
+    exact in float64 and G1/G2 do not change under a shift. Without recentring G1 is off by ~4e-7.
+    """
+    rng = np.random.default_rng(3)
+    x = 1e9 + rng.gamma(4.0, 1.0, 20_000)
+    pd.DataFrame({"x": x}).to_parquet(tmp_path / "offset.parquet")
+    report = nbeda.source(tmp_path / "offset.parquet", sample=500)
+    row = report.shape().table.loc["x"]
+    y = x - 1e9
+    assert row["skew"] == pytest.approx(stats.skew(y, bias=False), rel=1e-9)
+    assert row["kurtosis"] == pytest.approx(stats.kurtosis(y, bias=False), rel=1e-9)
+    a = report.engine.stats().loc["x"]
+    n, b2, b3 = a["count"], a["m2"] / a["count"], a["m3"] / a["count"]
+    naive = b3 / b2**1.5 * np.sqrt(n * (n - 1)) / (n - 2)  # sums about the first-pass mean, not recentred
+    assert abs(naive / stats.skew(y, bias=False) - 1) > 1e-8  # the case needs the recentring
