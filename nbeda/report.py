@@ -68,6 +68,10 @@ class Report:
         self.frame_expr = frame_expr
         self.initial_tab = normalise_tab(tab) if tab else "roles"
         self._cache: dict[tuple[str, tuple[tuple[str, Any], ...]], Any] = {}
+        if self.engine is not None:
+            # Every tab works from the roles read over all rows (a column all-distinct in the
+            # sample but not overall is no identifier), not from the sample's own reading.
+            self.ctx._roles = self.section("roles").table.copy()
 
     @property
     def frame(self) -> pd.DataFrame:

@@ -169,6 +169,15 @@ class EngineRun:
         labels: dict[str, str] = {}
         if module is not None:
             labels = module.apply(self, result) or {}
+        for note in self.notes:  # e.g. an out-of-memory retry, one column at a time
+            if note not in result.notes:
+                result.notes.append(note)
+        if not self.sample_is_all:
+            result.notes.append(
+                f"Data in {self.source.backend}: numbers marked exact are computed over all "
+                f"{self.n_rows:,} rows by the engine; the rest on a seeded Bernoulli sample of "
+                f"{len(self.sample()):,} rows (see 'How each number was computed')."
+            )
         table = result.table
         how = [labels.get(str(c), self.sample_label()) for c in table.columns]
         result.exactness = pd.DataFrame(
@@ -222,6 +231,8 @@ class EngineRun:
         parts.append("exact aggregates" if self.exact else "approximate quantiles and distinct counts")
         if not self.sample_is_all:
             parts.append(f"row-level parts on a seeded sample of {len(self.sample()):,} rows")
+        if self.notes:
+            parts.append("out of memory once: retried one column at a time")
         del st
         return " · ".join(parts)
 

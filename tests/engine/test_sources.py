@@ -51,8 +51,8 @@ def test_every_tab_agrees_with_the_pandas_path_when_the_sample_is_the_table(parq
     for name in SECTIONS:
         a, b = eng.section(name).table, mem.section(name).table
         assert_same_table(a, b, rtol=1e-9)
-        assert set(eng.section(name).exactness["how"]) <= {
-            "exact (all rows, by the engine)", "exact (all rows: the sample is the whole table)"}
+        how = list(eng.section(name).exactness["how"])
+        assert not [h for h in how if "sample (" in h], how  # nothing rests on a part of the rows
 
 
 @pytest.mark.parametrize("name", SECTIONS)

@@ -146,14 +146,15 @@ def apply(run: Any, result: Any) -> dict[str, str]:
         rule_label = (f"rules applied to the all-row counts ({how} distinct count) and the sample's values "
                       "(few-level columns: all their levels, from the engine)")
     labels["role"] = labels["reason"] = rule_label
-    # the other tabs keep the roles inferred on the sample (their code runs on it); say where they differ
+    # every other tab follows the all-row roles (the report hands them to its context); say
+    # where the sample alone would have read a column differently
     before = result.ctx.roles_table["role"]
     differ = [str(c) for c, r0, r1 in zip(result.table.index, before, result.table["role"], strict=True) if r0 != r1]
     if differ:
         result.notes.append(
-            "Over all rows these columns take another role than in the sample, which the other tabs use: "
-            + ", ".join(differ[:10]) + (f" and {len(differ) - 10} more" if len(differ) > 10 else "")
-            + ". Set it with roles={...} to make every tab follow it."
+            "Over all rows these columns take another role than the sample alone suggests; every tab "
+            "follows the all-row role: "
+            + ", ".join(differ[:10]) + (f" and {len(differ) - 10} more" if len(differ) > 10 else "") + "."
         )
     return labels
 
