@@ -210,6 +210,45 @@ def test_spark_spread_code_rebuilds_the_table_from_the_spark_frame(iris_spark):
     assert_same_table(ns["spread"], result.table, rtol=1e-9)
 
 
+@pytest.mark.slow
+def test_spark_unaggregatable_and_other_types_never_crash(spark):
+    """Arrays, maps, structs and binary on Spark are counted only (with the note); booleans,
+    dates, timestamps and decimals are aggregated. Reference: counts made in Python on the rows."""
+    import datetime as dt
+    from decimal import Decimal
+
+    from pyspark.sql import types as T
+
+    schema = T.StructType([
+        T.StructField("tags", T.ArrayType(T.LongType())),
+        T.StructField("readings", T.MapType(T.StringType(), T.DoubleType())),
+        T.StructField("sensor", T.StructType([T.StructField("id", T.LongType())])),
+        T.StructField("photo", T.BinaryType()),
+        T.StructField("irrigated", T.BooleanType()),
+        T.StructField("planted_on", T.DateType()),
+        T.StructField("read_at", T.TimestampType()),
+        T.StructField("dose", T.DecimalType(10, 3)),
+    ])
+    rows = [
+        ([1, 2], {"ph": 6.5}, (1,), b"a", True, dt.date(2025, 3, 1), dt.datetime(2025, 3, 1, 8), Decimal("1.250")),
+        (None, None, None, None, None, None, None, None),
+        ([3], {"ec": 1.1, "ph": 6.0}, (2,), b"bc", False, dt.date(2025, 4, 2), dt.datetime(2025, 4, 2, 9),
+         Decimal("2.500")),
+        ([], {}, (3,), b"", True, dt.date(2025, 2, 9), dt.datetime(2025, 2, 9, 7), Decimal("0.125")),
+    ]
+    t = nbeda.engine.open_source(spark.createDataFrame(rows, schema)).table
+    st = aggregates.column_stats(t, list(t.columns), exact=False)
+    for c in ["tags", "readings", "sensor", "photo"]:
+        assert st.loc[c, "kind"] == "unsupported" and st.loc[c, "note"].endswith("counted only"), c
+        assert (st.loc[c, "count"], st.loc[c, "missing"]) == (3, 1), c
+    assert st.loc["irrigated", "kind"] == "boolean" and st.loc["irrigated", "distinct"] == 2
+    assert pd.Timestamp(st.loc["planted_on", "min"]) == pd.Timestamp("2025-02-09") and st.loc["planted_on", "count"] == 3
+    assert pd.Timestamp(st.loc["read_at", "max"]) == pd.Timestamp("2025-04-02 09:00")
+    assert math.isclose(st.loc["dose", "mean"], (1.25 + 2.5 + 0.125) / 3, rel_tol=1e-12)
+    q = aggregates.column_quantiles(t, ["dose"], (0.5,), exact=True)
+    assert math.isclose(q.loc["dose", 0.5], 1.25, rel_tol=1e-12)
+
+
 # ----------------------------------------------------------------- DuckDB (not slow)
 def _nested_parquet(path) -> pd.DataFrame:
     """A small greenhouse-like table with list, struct, map and binary columns next to plain ones."""
