@@ -292,7 +292,8 @@ def test_unaggregatable_columns_are_counted_only_and_every_tab_renders(tmp_path)
     assert "counted only" in " ".join(report.engine.stats()["note"])
     for name in nbeda.SECTIONS:
         assert len(report.section(name).to_html()) > 200, name
-    assert "yield_kg" in report.to_html()
+    page = report.to_html()
+    assert "yield_kg" in page and "cannot be aggregated by the engine: counted only" in page
 
 
 def test_infinities_are_set_aside_by_comparison_on_duckdb(tmp_path):
