@@ -137,4 +137,13 @@ def hostile_frames() -> dict[str, pd.DataFrame]:
         index=pd.Index([f"r{i}" for i in range(n)], name="rid"),
     )
     frames["attrs_and_index"].attrs["source"] = "bench"
+    # A NUL and other control characters in labels (once aborted the chart renderer's process)
+    # and bytes that are not UTF-8 (once broke the roles rules).
+    frames["control_chars_and_bytes"] = pd.DataFrame(
+        {
+            "site\x00": ["North\x00gate", "East\x1b[31m", "West"] * 13 + ["West"],
+            "photo": [b"\x89PNG\r\n", None, b"ok"] * 13 + [b"\xff"],
+            "yield_kg": rng.gamma(2.0, 3.0, n),
+        }
+    )
     return frames

@@ -69,7 +69,7 @@ def role_row(s):
         else:
             unique = int(values.nunique())
     except TypeError:
-        row["unique"] = int(values.astype(str).nunique())
+        row["unique"] = int(values.map(str).nunique())
         row["role"], row["reason"] = "text", "values are containers (lists, dicts, sets): treated as text"
         return row
     row["unique"] = unique
@@ -118,7 +118,7 @@ def _role_rules(values, dtype, count, unique, levels):
     if words in bool_words:
         return "boolean", "two yes/no-like values: " + " / ".join(sorted(words))
     pick = np.unique(np.linspace(0, len(values) - 1, min(len(values), 200)).astype(np.int64))  # a spread of the values given
-    sample = values.iloc[pick].astype(str).str.strip()
+    sample = values.iloc[pick].map(str).astype(str).str.strip()  # map(str): bytes that are not UTF-8 stay b'..' 
     date_like = sample.str.fullmatch(
         r"\d{4}-\d{1,2}-\d{1,2}([ T]\d{1,2}:\d{2}(:\d{2}(\.\d+)?)?)?(Z|[+-]\d{2}:?\d{2})?"
         r"|\d{1,2}[/.]\d{1,2}[/.]\d{2,4}"
@@ -127,7 +127,7 @@ def _role_rules(values, dtype, count, unique, levels):
         parsed = pd.to_datetime(sample, errors="coerce", format="mixed")
         if parsed.notna().mean() >= 0.95:
             return "datetime", "strings that parse as dates (checked on a sample of up to 200)"
-    text = values if pd.api.types.is_string_dtype(dtype) and not pd.api.types.is_object_dtype(dtype) else values.astype(str)
+    text = values if pd.api.types.is_string_dtype(dtype) and not pd.api.types.is_object_dtype(dtype) else values.map(str).astype(str)
     mean_len = float(text.str.len().mean())
     if mean_len >= 30 and unique / count >= 0.5:
         return "text", f"long, mostly distinct strings (mean length {mean_len:.0f} characters)"

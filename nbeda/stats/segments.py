@@ -128,13 +128,15 @@ def segment_labels(s, mode, max_levels=20, n_bins=5):
         return out, named + (["(missing)"] if not ok.all() else []), named
     missing = s.isna().to_numpy(dtype=bool)
     present = s[~missing]
-    text = present.astype(str).to_numpy(dtype=object, copy=True)
+    # map(str) on object values: bytes that are not UTF-8 become "b'..'" instead of failing
+    text = (present.map(str) if present.dtype == object else present.astype(str)).to_numpy(dtype=object, copy=True)
     counts = pd.Series(text, dtype=object).value_counts(sort=False)
     by_count = counts.sort_index(kind="stable").sort_values(ascending=False, kind="stable")
     levels = list(by_count.index)
     if mode == "ordered":
         try:
-            natural = present.drop_duplicates().sort_values().astype(str)
+            natural = present.drop_duplicates().sort_values()
+            natural = natural.map(str) if natural.dtype == object else natural.astype(str)
             levels = list(dict.fromkeys(natural.to_numpy(dtype=object)))
             seen = set(levels)
             levels += [v for v in by_count.index if v not in seen]  # e.g. 1 and 1.0 in one object column
