@@ -26,7 +26,8 @@ from __future__ import annotations
 import ibis
 import pandas as pd
 
-__all__ = ["column_kinds", "column_stats", "column_quantiles", "value_counts", "sample_rows"]
+__all__ = ["column_kinds", "column_stats", "column_quantiles", "value_counts", "histogram_counts",
+           "sample_rows"]
 
 
 def column_kinds(t):
@@ -208,6 +209,30 @@ def value_counts(t, name, run=None):
     expr = t.filter(col.notnull()).group_by(value=col).aggregate(count=ibis._.count())
     got = run(expr, f"value counts of {name}")
     return got.sort_values(["count", "value"], ascending=[False, True], kind="stable").reset_index(drop=True)
+
+
+def histogram_counts(t, name, edges, run=None):
+    """Counts of the finite values of one column in the bins of ``edges`` (numpy.histogram's bins:
+    [e0, e1), ..., [e(k-1), ek], the last closed), plus the counts below e0 and above ek.
+
+    One group-by over the bucket index; returns (counts as int64 array of k, below, above).
+    """
+    run = run or (lambda expr, what: expr.to_pandas())
+    inf = ibis.literal(float("inf"), type="float64")
+    x = t[name].cast("float64")
+    if t.schema()[name].is_floating():
+        x = (x.isnan() | (x == inf) | (x == -inf)).ifelse(ibis.null("float64"), x)
+    edges = [float(e) for e in edges]
+    k = len(edges) - 1
+    b = x.bucket(edges, closed="left", close_extreme=True, include_under=True, include_over=True)
+    got = run(t.filter(x.notnull()).group_by(b=b).aggregate(n=ibis._.count()), f"histogram of {name}")
+    counts = [0] * (k + 2)  # under, the k bins, over
+    for bucket, count in zip(got["b"], got["n"]):
+        if bucket == bucket and bucket is not None:
+            counts[int(bucket)] += int(count)
+    import numpy
+
+    return numpy.asarray(counts[1:k + 1], dtype="int64"), counts[0], counts[k + 1]
 
 
 def sample_rows(t, n_rows, n, seed=0, run=None):

@@ -93,6 +93,7 @@ __all__ = [
     "shape_modes",
     "shape_of",
     "fd_histogram",
+    "fd_edges",
     "box_summary",
     "quantile_points",
     "compute_shape",
@@ -423,6 +424,30 @@ def fd_histogram(x, max_bins=200):
     edges = np.ldexp(edges, e)
     frame = pd.DataFrame({"bin_start": edges[:-1], "bin_end": edges[1:], "count": counts.astype("int64")})
     return frame, below, above
+
+
+def fd_edges(n, q1, q3, lo, hi, max_bins=200):
+    """The bin edges :func:`fd_histogram` draws, from summaries alone (count, quartiles, min, max).
+
+    For data that stay in an engine: same scaling, same rules (Freedman-Diaconis, else Sturges;
+    Tukey's far-out fences when the bins would exceed ``max_bins``), same floats as numpy's
+    ``histogram_bin_edges`` on the data whenever the quartiles are the same floats.
+    """
+    amax = max(abs(lo), abs(hi))
+    e = int(np.frexp(amax)[1]) if amax > 0 else 0
+    q1, q3, lo, hi = (float(np.ldexp(v, -e)) for v in (q1, q3, lo, hi))
+    width = 2.0 * (q3 - q1) * n ** (-1.0 / 3.0)
+    if width > 0 and np.ceil((hi - lo) / width) > max_bins:
+        lo, hi = max(lo, q1 - 3.0 * (q3 - q1)), min(hi, q3 + 3.0 * (q3 - q1))
+        nbins = int(min(max(np.ceil((hi - lo) / width), 1), max_bins))
+        edges = np.linspace(lo, hi, nbins + 1) if hi > lo else np.array([lo - 0.5, hi + 0.5])
+    else:
+        first, last = (lo - 0.5, hi + 0.5) if lo == hi else (lo, hi)
+        if width <= 0:  # Sturges (numpy: width = range / (log2(n) + 1) on the data's range)
+            width = (hi - lo) / (np.log2(n) + 1.0)
+        nbins = int(np.ceil((last - first) / width)) if width > 0 else 1
+        edges = np.linspace(first, last, nbins + 1)
+    return np.ldexp(edges, e)
 
 
 # ---------------------------------------------------------------------------

@@ -28,7 +28,7 @@ import pandas as pd
 
 from nbeda.engine import aggregates
 from nbeda.stats._codegen import function_source
-from nbeda.stats.shape import SAMPLE_MAX, dagostino_k2, frequency_table, level_row
+from nbeda.stats.shape import SAMPLE_MAX, dagostino_k2, fd_edges, frequency_table, level_row
 
 __all__ = ["scaled_moments", "exact_shape", "level_counts_engine", "exact_levels", "apply", "code"]
 
@@ -219,7 +219,38 @@ def _sample_quantiles(run: Any) -> bool:
     return not run.exact and run.sample_is_all
 
 
+def engine_histogram(run: Any, name: str) -> tuple[pd.DataFrame, int, int]:
+    """The Shape histogram of one column over all rows: Freedman-Diaconis edges from the engine's
+    count, quartiles, min and max (:func:`fd_edges`), counts by one engine group-by."""
+    st = run.stats().loc[name]
+    n = int(st["count"])
+    cols = ["bin_start", "bin_end", "count"]
+    if n == 0:
+        return pd.DataFrame({c: pd.Series(dtype="float64") for c in cols}), 0, 0
+    q = run.quantiles([name]).loc[name]
+    edges = fd_edges(n, float(q[0.25]), float(q[0.75]), float(st["min"]), float(st["max"]))
+    counts, below, above = aggregates.histogram_counts(run.t, name, edges, run=run.execute)
+    frame = pd.DataFrame({"bin_start": edges[:-1], "bin_end": edges[1:], "count": counts})
+    return frame, int(below), int(above)
+
+
+def _attach_histograms(run: Any, result: Any) -> None:
+    """Histograms (the tab's charts) over all rows, computed when a chart is first drawn."""
+    if run.sample_is_all:
+        return
+    cache: dict[int, tuple[pd.DataFrame, int, int]] = {}
+
+    def histogram_of(i: int) -> tuple[pd.DataFrame, int, int]:
+        if i not in cache:
+            cache[i] = engine_histogram(run, str(result.ctx.labels[i]))
+        return cache[i]
+
+    result.histogram_of = histogram_of
+    result.histogram_note = " — all rows, by the engine"
+
+
 def apply(run: Any, result: Any) -> dict[str, str]:
+    _attach_histograms(run, result)
     level_names = _level_names(run, result)
     if level_names:
         counts = level_counts_engine(run.t, level_names, run=run.execute)
