@@ -203,3 +203,17 @@ def test_cli_engine_writes_report_and_a_script_that_runs(parquet, tmp_path):
     ref = nbeda.source(str(path), sample=150)
     assert_same_table(ns["spread"], ref.spread().table, rtol=1e-9)
     assert main([str(path), "--memory-limit", "1GB", "-o", str(out), "-q"]) == 2
+
+
+def test_widget_and_cli_show_engine_progress(parquet, tmp_path, capsys):
+    from nbeda.__main__ import main
+    from nbeda.widget import ReportWidget
+
+    _, path = parquet
+    w = ReportWidget(nbeda.source(str(path), sample=100))
+    seen: list[str] = []
+    w.contents["spread"].observe(lambda ch: seen.extend(getattr(c, "value", "") for c in ch["new"]), names="children")
+    assert w.compute("spread") == "done"
+    assert any("Spread: quantiles of" in v for v in seen), seen  # the running query is named
+    assert main([str(path), "--engine", "duckdb", "-o", str(tmp_path / "r.html")]) == 0
+    assert "engine: quantiles of" in capsys.readouterr().err
