@@ -56,38 +56,16 @@ def data_path(rows: int, folder: str) -> str:
 
 def write_data(rows: int, folder: str) -> str:
     """The greenhouse demo at ``rows`` rows as one Parquet file (written once, then reused)."""
+    from nbeda.demo import write_parquet
+
     path = data_path(rows, folder)
     if os.path.exists(path):
         return path
-    import pyarrow as pa
-    import pyarrow.parquet as pq
-
-    from nbeda.demo import greenhouse
-
     os.makedirs(folder, exist_ok=True)
-    tmp = path + ".partial"
-    writer = None
     start = time.perf_counter()
-    try:
-        done = 0
-        k = 0
-        while done < rows:
-            n = min(CHUNK, rows - done)
-            part = greenhouse(n, seed=k).drop(columns=list(DROPPED))
-            part["soil_grade"] = part["soil_grade"].astype("str")
-            table = pa.Table.from_pandas(part, preserve_index=False)
-            if writer is None:
-                writer = pq.ParquetWriter(tmp, table.schema)
-            writer.write_table(table)
-            done += n
-            k += 1
-            del part, table
-    finally:
-        if writer is not None:
-            writer.close()
-    os.replace(tmp, path)
+    write_parquet(path, n=rows, seed=0, chunk=CHUNK, drop=DROPPED)
     print(f"wrote {path} ({rows:,} rows, {os.path.getsize(path) / 2**20:,.0f} MiB on disk) in "
-          f"{time.perf_counter() - start:.0f} s", flush=True)
+          f"{time.perf_counter() - start:.0f} s", file=sys.stderr, flush=True)
     return path
 
 

@@ -122,12 +122,15 @@ def greenhouse(n: int = 5000, seed: int = 0) -> pd.DataFrame:
     return frame
 
 
-def write_parquet(path: str, n: int = 10_000_000, seed: int = 0, chunk: int = 1_000_000) -> str:
+def write_parquet(
+    path: str, n: int = 10_000_000, seed: int = 0, chunk: int = 1_000_000, drop: tuple[str, ...] = ()
+) -> str:
     """Write the greenhouse demo at ``n`` rows to one Parquet file, in chunks (bounded memory).
 
     Chunk k is ``greenhouse(chunk, seed=seed + k)`` with ``plot_id`` renumbered so ids stay
     distinct across chunks and ``soil_grade`` stored as text (Parquet keeps no pandas order).
-    Needs pyarrow (extra ``parquet`` or ``duckdb``). Returns ``path``; an existing file is kept.
+    Columns named in ``drop`` are left out. Needs pyarrow (extra ``parquet`` or ``duckdb``).
+    Returns ``path``; an existing file is kept.
     """
     import os
 
@@ -136,7 +139,7 @@ def write_parquet(path: str, n: int = 10_000_000, seed: int = 0, chunk: int = 1_
 
     if os.path.exists(path):
         return path
-    tmp = f"{path}.partial"
+    tmp = f"{path}.partial{os.getpid()}"
     writer = None
     try:
         done, k = 0, 0
@@ -145,6 +148,7 @@ def write_parquet(path: str, n: int = 10_000_000, seed: int = 0, chunk: int = 1_
             part = greenhouse(size, seed=seed + k)
             part["plot_id"] = pd.Series(range(done + 1, done + size + 1)).map("GH-{:08d}".format).to_numpy()
             part["soil_grade"] = part["soil_grade"].astype("str")
+            part = part.drop(columns=list(drop))
             table = pa.Table.from_pandas(part, preserve_index=False)
             if writer is None:
                 writer = pq.ParquetWriter(tmp, table.schema)

@@ -350,6 +350,13 @@ def crosstab_tables(a, a_order, b, b_order, a_name="segment", b_name="against"):
     )
     counts.index = pd.Index(list(a_order), dtype=object, name=a_name)
     counts.columns = pd.Index(list(b_order), dtype=object, name=b_name)
+    return counts_tables(counts)
+
+
+def counts_tables(counts):
+    """From a table of counts: row %, column %, expected counts, adjusted standardized residuals,
+    the χ² test of independence (no continuity correction), Cochran's rule, Cramér's V (plain and
+    bias-corrected, Bergsma 2013) and, for 2×2 tables, Fisher's exact test (under "tests")."""
     o = counts.to_numpy(dtype="float64")
     n = o.sum()
     r, c = o.sum(axis=1, keepdims=True), o.sum(axis=0, keepdims=True)
@@ -610,6 +617,7 @@ segments_tests = pd.DataFrame(
         blocks += [function_source(metric_table), function_source(oneway_anova), function_source(welch_anova)]
     blocks.append(function_source(tests_table))
     if against_pos is not None:
+        blocks.append(function_source(counts_tables))
         blocks.append(function_source(crosstab_tables))
         if metric_pos is not None:
             blocks.append(function_source(pivot_table))

@@ -32,6 +32,7 @@ import pandas as pd
 from scipy import stats
 
 from nbeda.stats import segments as S
+from nbeda.stats.segments import counts_tables
 from nbeda.stats._codegen import col_expr, function_source
 
 __all__ = [
@@ -411,33 +412,9 @@ def exact_segments(plan, groups_all, confidence=0.95, name="segment", balance_te
         np.add.at(o, (ia, ib), cross["count"].to_numpy(dtype="int64"))
         bindex = pd.Index(list(b_order), dtype=object, name=b_name)
         counts = pd.DataFrame(o, index=index.copy(), columns=bindex)
-        of = o.astype("float64")
-        total = of.sum()
-        r, c = of.sum(axis=1, keepdims=True), of.sum(axis=0, keepdims=True)
-        e = r * c / total
-        with np.errstate(invalid="ignore", divide="ignore"):
-            residuals = (of - e) / np.sqrt(e * (1 - r / total) * (1 - c / total))
-        out.update(crosstab=counts, row_pct=counts.div(r[:, 0], axis=0) * 100.0,
-                   col_pct=counts.div(c[0, :], axis=1) * 100.0,
-                   expected=pd.DataFrame(e, index=counts.index, columns=counts.columns),
-                   residuals=pd.DataFrame(residuals, index=counts.index, columns=counts.columns),
-                   b_order=b_order)
-        n_rows, n_cols = of.shape
-        if n_rows >= 2 and n_cols >= 2:
-            chi2, p, dof, _ = stats.chi2_contingency(of, correction=False)
-            v = float(np.sqrt(chi2 / (total * (min(n_rows, n_cols) - 1))))
-            phi2 = max(0.0, chi2 / total - (n_rows - 1) * (n_cols - 1) / (total - 1))
-            rr, cc = n_rows - (n_rows - 1) ** 2 / (total - 1), n_cols - (n_cols - 1) ** 2 / (total - 1)
-            denom = min(rr - 1, cc - 1)
-            out["cramers_v"] = v
-            out["cramers_v_corrected"] = float(np.sqrt(phi2 / denom)) if denom > 0 else np.nan
-            out["cochran_ok"] = bool((e >= 5).mean() >= 0.8 and e.min() >= 1)
-            out["share_expected_ge_5"] = float((e >= 5).mean())
-            out["min_expected"] = float(e.min())
-            tests["chi2"] = (float(chi2), float(dof), float(p), v, "cramers_v")
-            if n_rows == 2 and n_cols == 2:
-                odds, p_f = stats.fisher_exact(o)
-                tests["fisher_exact"] = (float(odds), np.nan, float(p_f), float(odds), "odds_ratio")
+        tables = counts_tables(counts)  # the pandas path's own rules, on the all-row counts
+        tests.update(tables.pop("tests"))
+        out.update(tables, b_order=b_order)
         if "n" in cross and "n" in g:
             cn = np.zeros(o.shape, dtype="int64")
             cs = np.zeros(o.shape, dtype="float64")
@@ -605,7 +582,7 @@ def code(run: Any, result: Any) -> str:
     ]
     if against is not None:
         blocks.append(function_source(cross_stats))
-    blocks += [function_source(plan_labels), function_source(exact_segments)]
+    blocks += [function_source(plan_labels), function_source(S.counts_tables), function_source(exact_segments)]
     body = [
         f"plan = engine_plan(t, {by!r}, {res['mode']!r}, {S.MAX_LEVELS}, {S.N_BINS}, exact={exact!r})",
         f"groups_all = group_stats(t, {by!r}, plan, {metric!r}, exact={exact!r})",
