@@ -35,29 +35,13 @@ import sys
 import time
 
 HERE = os.path.dirname(os.path.abspath(__file__))
-CHUNK = 1_000_000
-DROPPED = ("plot_id", "network", "organic")
 PROBS = (0.25, 0.5, 0.75)
 
 
 # ----------------------------------------------------------------------------- data
-def data_path(rows: int, folder: str) -> str:
-    return os.path.join(folder, f"greenhouse_{rows}.parquet")
-
-
-def write_data(rows: int, folder: str) -> str:
-    """The greenhouse demo at ``rows`` rows as one Parquet file (written once, then reused)."""
-    from nbeda.demo import write_parquet
-
-    path = data_path(rows, folder)
-    if os.path.exists(path):
-        return path
-    os.makedirs(folder, exist_ok=True)
-    start = time.perf_counter()
-    write_parquet(path, n=rows, seed=0, chunk=CHUNK, drop=DROPPED)
-    print(f"wrote {path} ({rows:,} rows, {os.path.getsize(path) / 2**20:,.0f} MiB on disk) in "
-          f"{time.perf_counter() - start:.0f} s", file=sys.stderr, flush=True)
-    return path
+# The same cached greenhouse file as bench_engine.py (same rows, same 12 columns).
+sys.path.insert(0, HERE)
+from bench_engine import data_path, write_data  # noqa: E402
 
 
 # ---------------------------------------------------------------------------- spark
