@@ -31,7 +31,8 @@ TAB_TIMEOUT_MS = 180_000
 def engine_nb(browser: Any, lab_server: LabServer, artifacts: Path) -> Iterator[Session]:
     s = open_session(browser, origin=lab_server.url)
     page = s.page
-    page.goto(f"{lab_server.url}/lab/tree/{ENGINE_NOTEBOOK.name}?token={lab_server.token}")
+    # A workspace of its own: the tour's layout (the default workspace) never reopens this notebook.
+    page.goto(f"{lab_server.url}/lab/workspaces/engine/tree/{ENGINE_NOTEBOOK.name}?token={lab_server.token}")
     page.wait_for_selector(".jp-Notebook .jp-Cell", timeout=120_000)
     _wait_kernel_idle(page, timeout=120_000)
     page.locator(".jp-Notebook").first.click(position={"x": 5, "y": 5})
