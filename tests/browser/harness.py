@@ -365,4 +365,5 @@ DOC_SCREENSHOTS = {
     "tab-segments.png": "segments.png",
     "code-cell.png": "code-cell.png",
     "standalone-spread.png": "standalone-report.png",
+    "engine-tab-spread.png": "engine-spread.png",
 }
