@@ -217,3 +217,27 @@ def test_widget_and_cli_show_engine_progress(parquet, tmp_path, capsys):
     assert any("Spread: quantiles of" in v for v in seen), seen  # the running query is named
     assert main([str(path), "--engine", "duckdb", "-o", str(tmp_path / "r.html")]) == 0
     assert "engine: quantiles of" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("name", SECTIONS)
+def test_hostile_labels_and_values_on_the_engine_path(tmp_path, name):
+    """Labels reach emitted ibis code through repr() and HTML through escaping (sample < table)."""
+    from tests.helpers import HOSTILE_NAME, SCRIPT
+
+    rng = np.random.default_rng(9)
+    n = 600
+    df = pd.DataFrame(
+        {
+            HOSTILE_NAME: rng.gamma(2.0, 4.0, n),
+            SCRIPT: rng.choice([SCRIPT, "a'b", 'q"'], n),
+            "ok": rng.normal(size=n),
+        }
+    )
+    path = tmp_path / "hostile.parquet"
+    df.to_parquet(path)
+    r = nbeda.source(str(path), sample=200, by=SCRIPT)
+    result = r.section(name)
+    html = result.to_html()
+    assert SCRIPT not in html and "<script>alert" not in html
+    ns = run_code(result.code(), None, "unused")
+    assert_same_table(ns[name], result.table, rtol=1e-9)
