@@ -236,6 +236,20 @@ def oneway_anova(y, codes, k):
         }
 
 
+def welch_from_summaries(n, means, var):
+    """Welch's (1951) F and denominator df from per-group counts, means and variances (NaN when undefined)."""
+    k = len(n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = n / var
+        w_sum = w.sum()
+        centre = np.sum(w * means) / w_sum
+        a = np.sum(w * (means - centre) ** 2) / (k - 1)
+        lam = np.sum((1 - w / w_sum) ** 2 / (n - 1))
+        f = a / (1 + 2 * (k - 2) / (k**2 - 1) * lam)
+        df2 = (k**2 - 1) / (3 * lam)
+    return f, df2
+
+
 def welch_anova(y, codes, k):
     """Welch's (1951) ANOVA for unequal variances: F, numerator and denominator df, p-value."""
     y = np.asarray(y, dtype="float64")
@@ -246,14 +260,7 @@ def welch_anova(y, codes, k):
     fix = np.bincount(codes, weights=dev, minlength=k) / n
     means, dev = means + fix, dev - fix[codes]
     var = np.bincount(codes, weights=dev * dev, minlength=k) / (n - 1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        w = n / var
-        w_sum = w.sum()
-        centre = np.sum(w * means) / w_sum
-        a = np.sum(w * (means - centre) ** 2) / (k - 1)
-        lam = np.sum((1 - w / w_sum) ** 2 / (n - 1))
-        f = a / (1 + 2 * (k - 2) / (k**2 - 1) * lam)
-        df2 = (k**2 - 1) / (3 * lam)
+    f, df2 = welch_from_summaries(n, means, var)
     if not (np.all(var > 0) and np.isfinite(f)):
         return {"f": np.nan, "df_between": float(k - 1), "df_within": np.nan, "p_value": np.nan}
     return {"f": float(f), "df_between": float(k - 1), "df_within": float(df2),
@@ -614,7 +621,8 @@ segments_tests = pd.DataFrame(
         function_source(balance_table),
     ]
     if metric_pos is not None:
-        blocks += [function_source(metric_table), function_source(oneway_anova), function_source(welch_anova)]
+        blocks += [function_source(metric_table), function_source(oneway_anova),
+                   function_source(welch_from_summaries), function_source(welch_anova)]
     blocks.append(function_source(tests_table))
     if against_pos is not None:
         blocks.append(function_source(counts_tables))

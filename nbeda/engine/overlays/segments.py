@@ -32,7 +32,7 @@ import pandas as pd
 from scipy import stats
 
 from nbeda.stats import segments as S
-from nbeda.stats.segments import counts_tables
+from nbeda.stats.segments import counts_tables, welch_from_summaries
 from nbeda.stats._codegen import col_expr, function_source
 
 __all__ = [
@@ -363,13 +363,7 @@ def exact_segments(plan, groups_all, confidence=0.95, name="segment", balance_te
                 }
                 # Welch (1951) from the same group summaries
                 vg = var[keep]
-                w = ng / vg
-                w_sum = w.sum()
-                centre = np.sum(w * cm) / w_sum
-                a = np.sum(w * (cm - centre) ** 2) / (k - 1)
-                lam = np.sum((1 - w / w_sum) ** 2 / (ng - 1))
-                wf = a / (1 + 2 * (k - 2) / (k**2 - 1) * lam)
-                wdf2 = (k**2 - 1) / (3 * lam)
+                wf, wdf2 = welch_from_summaries(ng, cm, vg)
             if np.all(vg > 0) and np.isfinite(wf):
                 welch = (float(wf), float(k - 1), float(stats.f.sf(wf, k - 1, wdf2)), float(wdf2))
             else:
@@ -582,7 +576,8 @@ def code(run: Any, result: Any) -> str:
     ]
     if against is not None:
         blocks.append(function_source(cross_stats))
-    blocks += [function_source(plan_labels), function_source(S.counts_tables), function_source(exact_segments)]
+    blocks += [function_source(plan_labels), function_source(S.counts_tables),
+               function_source(S.welch_from_summaries), function_source(exact_segments)]
     body = [
         f"plan = engine_plan(t, {by!r}, {res['mode']!r}, {S.MAX_LEVELS}, {S.N_BINS}, exact={exact!r})",
         f"groups_all = group_stats(t, {by!r}, plan, {metric!r}, exact={exact!r})",
