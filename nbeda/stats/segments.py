@@ -212,8 +212,14 @@ def oneway_anova(y, codes, k):
     dev = z - means[codes]
     fix = np.bincount(codes, weights=dev, minlength=k) / n
     means, dev = means + fix, dev - fix[codes]
+    return anova_from_summaries(n, means, np.float64(np.sum(dev * dev)))
+
+
+def anova_from_summaries(n, means, ss_within):
+    """The one-way ANOVA table from per-group counts, means and the within-group sum of squares."""
+    n_total = n.sum()
+    k = len(n)
     grand = np.sum(n * means) / n_total
-    ss_within = np.float64(np.sum(dev * dev))
     ss_between = np.float64(np.sum(n * (means - grand) ** 2))
     df1, df2 = np.float64(k - 1), np.float64(n_total - k)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -621,7 +627,7 @@ segments_tests = pd.DataFrame(
         function_source(balance_table),
     ]
     if metric_pos is not None:
-        blocks += [function_source(metric_table), function_source(oneway_anova),
+        blocks += [function_source(metric_table), function_source(anova_from_summaries), function_source(oneway_anova),
                    function_source(welch_from_summaries), function_source(welch_anova)]
     blocks.append(function_source(tests_table))
     if against_pos is not None:

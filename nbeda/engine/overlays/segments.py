@@ -32,7 +32,7 @@ import pandas as pd
 from scipy import stats
 
 from nbeda.stats import segments as S
-from nbeda.stats.segments import counts_tables, welch_from_summaries
+from nbeda.stats.segments import anova_from_summaries, counts_tables, welch_from_summaries
 from nbeda.stats._codegen import col_expr, function_source
 
 __all__ = [
@@ -343,27 +343,10 @@ def exact_segments(plan, groups_all, confidence=0.95, name="segment", balance_te
             # group means centred on the first group's first-pass mean: differences of close
             # numbers are exact, and s1/n carries the second-pass correction
             cm = (mean0[keep] - mean0[keep][0]) + s1[keep] / ng
-            n_total = ng.sum()
-            grand = np.sum(ng * cm) / n_total
             ss_within = np.float64(np.sum(np.maximum(m2[keep] - s1[keep] ** 2 / ng, 0.0)))
-            ss_between = np.float64(np.sum(ng * (cm - grand) ** 2))
-            df1, df2 = np.float64(k - 1), np.float64(n_total - k)
-            with np.errstate(invalid="ignore", divide="ignore"):
-                ms_between, ms_within = ss_between / df1, ss_within / df2
-                f = ms_between / ms_within
-                ss_total = ss_between + ss_within
-                anova = {
-                    "ss_between": float(ss_between), "ss_within": float(ss_within),
-                    "df_between": int(df1), "df_within": int(df2),
-                    "ms_between": ms_between, "ms_within": ms_within, "f": f,
-                    "p_value": float(stats.f.sf(f, df1, df2)) if np.isfinite(f) else (0.0 if f > 0 else np.nan),
-                    "r_squared": ss_between / ss_total, "eta_squared": ss_between / ss_total,
-                    "omega_squared": (ss_between - df1 * ms_within) / (ss_total + ms_within),
-                    "epsilon_squared": (ss_between - df1 * ms_within) / ss_total,
-                }
-                # Welch (1951) from the same group summaries
-                vg = var[keep]
-                wf, wdf2 = welch_from_summaries(ng, cm, vg)
+            anova = anova_from_summaries(ng, cm, ss_within)
+            vg = var[keep]  # Welch (1951) from the same group summaries
+            wf, wdf2 = welch_from_summaries(ng, cm, vg)
             if np.all(vg > 0) and np.isfinite(wf):
                 welch = (float(wf), float(k - 1), float(stats.f.sf(wf, k - 1, wdf2)), float(wdf2))
             else:
@@ -576,7 +559,7 @@ def code(run: Any, result: Any) -> str:
     ]
     if against is not None:
         blocks.append(function_source(cross_stats))
-    blocks += [function_source(plan_labels), function_source(S.counts_tables),
+    blocks += [function_source(plan_labels), function_source(S.counts_tables), function_source(S.anova_from_summaries),
                function_source(S.welch_from_summaries), function_source(exact_segments)]
     body = [
         f"plan = engine_plan(t, {by!r}, {res['mode']!r}, {S.MAX_LEVELS}, {S.N_BINS}, exact={exact!r})",
